@@ -1,0 +1,400 @@
+//! Diagnosis: naming the bug from the fingerprint it leaves in the
+//! analytic-versus-numeric comparison.
+//!
+//! Each row gets at most one primary [`Diagnosis`]. The checks run in a
+//! fixed order, from the ones that make every number meaningless (a
+//! non-finite value, a forward that is not repeatable) to the ones that
+//! describe which elements are wrong; the first that fits wins.
+
+use std::fmt;
+
+use crate::report::{ElementCheck, ElementStatus, Row};
+use crate::tensor::{shape_string, Index, Tensor};
+
+/// What kind of backward bug the numbers point to.
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(tag = "kind", rename_all = "kebab-case")]
+pub enum Diagnosis {
+    /// The analytic gradient is the numeric one negated, across the tensor.
+    SignFlipped,
+    /// The analytic gradient is `factor` times the numeric one, across the
+    /// tensor.
+    Scaled {
+        /// analytic / numeric.
+        factor: f64,
+        /// A common culprit that matches the factor, e.g. `1/N (N = batch = 4)`.
+        culprit: Option<String>,
+    },
+    /// The analytic gradient matches the numeric one with two axes swapped.
+    Transposed {
+        /// The swapped axes.
+        axes: (usize, usize),
+    },
+    /// The gradient's shape is not the tensor's.
+    WrongShape {
+        /// The tensor's shape.
+        expected: Vec<usize>,
+        /// The gradient's shape.
+        returned: Vec<usize>,
+    },
+    /// The backward returned no gradient for this tensor.
+    Missing,
+    /// The gradient is zero everywhere the derivative is not.
+    AllZero,
+    /// The gradient is non-zero where the derivative is zero everywhere.
+    Spurious,
+    /// Only some elements are wrong.
+    Partial {
+        /// Elements beyond their bound.
+        wrong: usize,
+        /// Elements checked.
+        of: usize,
+        /// Where they are, e.g. `last slice of axis 0 (index 3)`.
+        pattern: String,
+    },
+    /// A NaN or infinity, and where it first appears.
+    NonFinite {
+        /// E.g. `backward at [0, 2]` or `forward output `y` at [1]`.
+        place: String,
+    },
+    /// Two forwards at the same point differ: the audit's numbers are noise.
+    ForwardNotRepeatable {
+        /// The first difference seen.
+        detail: String,
+    },
+    /// Two backward calls at the same point return different gradients: the
+    /// backward accumulates into a buffer instead of returning fresh values.
+    BackwardAccumulates {
+        /// The first difference seen.
+        detail: String,
+    },
+    /// Some elements sit at a non-differentiable point; listed apart.
+    Kinks {
+        /// Elements at a kink.
+        count: usize,
+        /// Of those, how many have an analytic value outside the one-sided
+        /// derivatives.
+        outside: usize,
+    },
+}
+
+impl Diagnosis {
+    /// `true` for the informational diagnosis of a passing row (kinks).
+    pub fn is_informational(&self) -> bool {
+        matches!(self, Diagnosis::Kinks { outside: 0, .. })
+    }
+}
+
+impl fmt::Display for Diagnosis {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Diagnosis::SignFlipped => f.write_str("sign flipped"),
+            Diagnosis::Scaled { factor, culprit } => match culprit {
+                Some(c) => write!(f, "scaled by {c}"),
+                None => write!(f, "scaled by {}", crate::format::num(*factor)),
+            },
+            Diagnosis::Transposed { axes } => {
+                write!(f, "transposed (axes {} and {} swapped)", axes.0, axes.1)
+            }
+            Diagnosis::WrongShape { expected, returned } => write!(
+                f,
+                "wrong shape: returned {}, expected {}",
+                shape_string(returned),
+                shape_string(expected)
+            ),
+            Diagnosis::Missing => f.write_str("missing: no gradient returned"),
+            Diagnosis::AllZero => f.write_str("all zero where the derivative is not"),
+            Diagnosis::Spurious => f.write_str("spurious: non-zero, derivative is 0"),
+            Diagnosis::Partial { wrong, of, pattern } => {
+                write!(f, "partial: {pattern} ({wrong} of {of} wrong)")
+            }
+            Diagnosis::NonFinite { place } => write!(f, "non-finite in {place}"),
+            Diagnosis::ForwardNotRepeatable { detail } => {
+                write!(f, "forward not repeatable: {detail}")
+            }
+            Diagnosis::BackwardAccumulates { detail } => {
+                write!(f, "backward accumulates: {detail}")
+            }
+            Diagnosis::Kinks { count, outside } => {
+                if *outside == 0 {
+                    write!(f, "{count} at a kink (one-sided values fit)")
+                } else {
+                    write!(
+                        f,
+                        "{count} at a kink, {outside} outside the one-sided values"
+                    )
+                }
+            }
+        }
+    }
+}
+
+/// Facts the audit gathered beyond the element comparisons.
+#[derive(Clone, Debug, Default)]
+pub(crate) struct Evidence {
+    /// First difference between two forwards at the same point.
+    pub forward_change: Option<String>,
+    /// First difference between two backwards at the same point (this row).
+    pub backward_change: Option<String>,
+    /// First non-finite forward output.
+    pub nonfinite_output: Option<String>,
+    /// Named sizes from the signature (`batch = 4`), for naming factors.
+    pub sizes: Vec<(String, usize)>,
+}
+
+/// Relative agreement needed to name a common factor.
+const FACTOR_MATCH: f64 = 2e-3;
+
+/// The primary diagnosis of a row, if any.
+pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> Option<Diagnosis> {
+    if let Some(place) = &ev.nonfinite_output {
+        return Some(Diagnosis::NonFinite {
+            place: format!("forward {place}"),
+        });
+    }
+    if let Some(detail) = &ev.forward_change {
+        return Some(Diagnosis::ForwardNotRepeatable {
+            detail: detail.clone(),
+        });
+    }
+    if let Some(detail) = &ev.backward_change {
+        return Some(Diagnosis::BackwardAccumulates {
+            detail: detail.clone(),
+        });
+    }
+    let Some(grad) = grad else {
+        return Some(Diagnosis::Missing);
+    };
+    if let Some(j) = grad.data().iter().position(|v| !v.is_finite()) {
+        return Some(Diagnosis::NonFinite {
+            place: format!("backward at {}", grad.index_of(j)),
+        });
+    }
+    let el = &row.elements;
+    if let Some(j) = el.iter().position(|e| !e.numeric.is_finite()) {
+        return Some(Diagnosis::NonFinite {
+            place: format!("reference at {}", Index::from_flat(&row.shape, j)),
+        });
+    }
+    if grad.shape() != row.shape.as_slice() {
+        if let Some(axes) = transposed_match(&row.shape, grad, el) {
+            return Some(Diagnosis::Transposed { axes });
+        }
+        return Some(Diagnosis::WrongShape {
+            expected: row.shape.clone(),
+            returned: grad.shape().to_vec(),
+        });
+    }
+    let wrong: Vec<usize> = (0..el.len())
+        .filter(|&j| el[j].status.is_failure())
+        .collect();
+    let kinks = el
+        .iter()
+        .filter(|e| matches!(e.status, ElementStatus::Kink { .. }))
+        .count();
+    let outside = el
+        .iter()
+        .filter(|e| matches!(e.status, ElementStatus::Kink { fits: false, .. }))
+        .count();
+    if wrong.is_empty() {
+        return (kinks > 0).then_some(Diagnosis::Kinks {
+            count: kinks,
+            outside,
+        });
+    }
+    let significant = |e: &ElementCheck| e.numeric.abs() > e.bound;
+    if !el.iter().any(significant) {
+        return Some(Diagnosis::Spurious);
+    }
+    if el.iter().all(|e| e.analytic.abs() <= e.bound) {
+        return Some(Diagnosis::AllZero);
+    }
+    if let Some(k) = common_factor(el) {
+        if (k + 1.0).abs() < FACTOR_MATCH {
+            return Some(Diagnosis::SignFlipped);
+        }
+        return Some(Diagnosis::Scaled {
+            factor: k,
+            culprit: culprit(k, &ev.sizes),
+        });
+    }
+    if let Some(axes) = transposed_match(&row.shape, grad, el) {
+        return Some(Diagnosis::Transposed { axes });
+    }
+    Some(Diagnosis::Partial {
+        wrong: wrong.len(),
+        of: el.len(),
+        pattern: pattern(&row.shape, &wrong),
+    })
+}
+
+/// One k with a ≈ k·n for every element (within the bounds, scaled by k),
+/// if the ratios agree; `None` otherwise. k = 0 and k = 1 are excluded.
+fn common_factor(el: &[ElementCheck]) -> Option<f64> {
+    let mut ratios: Vec<f64> = el
+        .iter()
+        .filter(|e| e.numeric.abs() > e.bound && e.numeric != 0.0)
+        .map(|e| e.analytic / e.numeric)
+        .collect();
+    if ratios.is_empty() {
+        return None;
+    }
+    ratios.sort_by(f64::total_cmp);
+    let k = ratios[ratios.len() / 2];
+    if !k.is_finite() || k.abs() < 1e-12 || (k - 1.0).abs() < FACTOR_MATCH {
+        return None;
+    }
+    let fits = el.iter().all(|e| {
+        let slack = e.bound * k.abs().max(1.0) + FACTOR_MATCH * (k * e.numeric).abs();
+        (e.analytic - k * e.numeric).abs() <= slack
+    });
+    fits.then_some(k)
+}
+
+/// Names a factor that is a common culprit: ±2, ±1/2, or a named size N
+/// (or 1/N), e.g. the batch size when a mean was taken instead of a sum.
+fn culprit(k: f64, sizes: &[(String, usize)]) -> Option<String> {
+    let close = |c: f64| ((k - c) / c).abs() < FACTOR_MATCH;
+    let sign = if k < 0.0 { "-" } else { "" };
+    let a = k.abs();
+    let close_abs = |c: f64| ((a - c) / c).abs() < FACTOR_MATCH;
+    for &(ref name, n) in sizes {
+        if n > 2 {
+            let n = n as f64;
+            if close_abs(n) {
+                return Some(format!("{sign}N (N = {name} = {n})"));
+            }
+            if close_abs(1.0 / n) {
+                return Some(format!("{sign}1/N (N = {name} = {n})"));
+            }
+        }
+    }
+    for (c, text) in [(2.0, "2"), (0.5, "1/2"), (-2.0, "-2"), (-0.5, "-1/2")] {
+        if close(c) {
+            return Some(text.to_string());
+        }
+    }
+    None
+}
+
+/// Axes (p, q) such that the gradient equals the numeric derivative with
+/// axes p and q swapped: gradient[.. j .. i ..] ≈ numeric[.. i .. j ..].
+fn transposed_match(
+    shape: &[usize],
+    grad: &Tensor<f64>,
+    el: &[ElementCheck],
+) -> Option<(usize, usize)> {
+    if grad.len() != el.len() || el.len() < 2 {
+        return None;
+    }
+    let r = shape.len();
+    for p in 0..r {
+        for q in p + 1..r {
+            let mut swapped = shape.to_vec();
+            swapped.swap(p, q);
+            if swapped != grad.shape() || (shape == grad.shape() && shape[p] < 2) {
+                continue;
+            }
+            let ok = el.iter().enumerate().all(|(j, e)| {
+                let mut ix = Index::from_flat(shape, j).0;
+                ix.swap(p, q);
+                grad.get(&ix)
+                    .is_some_and(|a| (a - e.numeric).abs() <= e.bound)
+            });
+            // A symmetric derivative matches itself transposed: only call
+            // it a transposition if the plain comparison fails somewhere.
+            let plain_ok = grad.shape() == shape && el.iter().all(|e| !e.status.is_failure());
+            if ok && !plain_ok {
+                return Some((p, q));
+            }
+        }
+    }
+    None
+}
+
+/// Describes where the wrong elements are.
+fn pattern(shape: &[usize], wrong: &[usize]) -> String {
+    let idx: Vec<Vec<usize>> = wrong
+        .iter()
+        .map(|&j| Index::from_flat(shape, j).0)
+        .collect();
+    let total: usize = shape.iter().product();
+    // The diagonal of a square matrix, or everything but it.
+    if shape.len() == 2 && shape[0] == shape[1] && shape[0] > 1 {
+        let n = shape[0];
+        let on_diag = idx.iter().filter(|ix| ix[0] == ix[1]).count();
+        if on_diag == idx.len() && on_diag == n {
+            return "the diagonal only".to_string();
+        }
+        if on_diag == 0 && idx.len() == n * n - n {
+            return "every element but the diagonal".to_string();
+        }
+    }
+    if idx.len() == 1 {
+        return format!("one element, {}", Index(idx[0].clone()));
+    }
+    // All wrong elements in one slice of one axis.
+    let mut best: Option<(usize, usize, bool)> = None;
+    for axis in 0..shape.len() {
+        let v = idx[0][axis];
+        if shape[axis] > 1 && idx.iter().all(|ix| ix[axis] == v) {
+            let slice_len = total / shape[axis];
+            let full = idx.len() == slice_len;
+            if best.is_none_or(|(_, _, f)| full && !f) {
+                best = Some((axis, v, full));
+            }
+        }
+    }
+    if let Some((axis, v, full)) = best {
+        let which = if v == 0 {
+            "first slice".to_string()
+        } else if v + 1 == shape[axis] {
+            "last slice".to_string()
+        } else {
+            "slice".to_string()
+        };
+        let word = match (shape.len(), axis) {
+            (2, 0) => "row",
+            (2, 1) => "column",
+            _ => "",
+        };
+        let whole = if full { "all of " } else { "part of " };
+        return if word.is_empty() {
+            format!("{whole}{which} {v} of axis {axis}")
+        } else {
+            format!("{whole}{word} {v} ({which} of axis {axis})")
+        };
+    }
+    format!("scattered, first at {}", Index(idx[0].clone()))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn patterns_name_rows_columns_and_diagonals() {
+        // 3x3: all of column 2.
+        assert_eq!(
+            pattern(&[3, 3], &[2, 5, 8]),
+            "all of column 2 (last slice of axis 1)"
+        );
+        assert_eq!(pattern(&[3, 3], &[0, 4, 8]), "the diagonal only");
+        assert_eq!(pattern(&[2, 2], &[1, 2]), "every element but the diagonal");
+        assert_eq!(
+            pattern(&[4, 2], &[0, 1]),
+            "all of row 0 (first slice of axis 0)"
+        );
+        assert_eq!(pattern(&[5], &[3]), "one element, [3]");
+    }
+
+    #[test]
+    fn culprits_name_batch_size_and_halves() {
+        let sizes = vec![("batch".to_string(), 4)];
+        assert_eq!(culprit(0.25, &sizes).unwrap(), "1/N (N = batch = 4)");
+        assert_eq!(culprit(4.0, &sizes).unwrap(), "N (N = batch = 4)");
+        assert_eq!(culprit(2.0, &sizes).unwrap(), "2");
+        assert_eq!(culprit(0.5, &[]).unwrap(), "1/2");
+        assert!(culprit(0.37, &sizes).is_none());
+    }
+}

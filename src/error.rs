@@ -1,0 +1,125 @@
+//! The one error type: misuse of the API or a layer that cannot be audited.
+
+use thiserror::Error as ThisError;
+
+/// Why an audit (or a tensor constructor) could not run.
+///
+/// Every message says *where*: which tensor or output, which call, and what
+/// was expected. A gradient that disagrees is not an error: it is a row of
+/// the [`Report`](crate::Report).
+///
+/// Converts into a proptest failure with `?` (any `std::error::Error` does).
+#[derive(Debug, ThisError, Clone, PartialEq)]
+#[non_exhaustive]
+pub enum Error {
+    /// Tensor data whose length is not the product of its shape.
+    #[error(
+        "tensor of shape {} needs {expected} elements, but {found} were given",
+        crate::tensor::shape_string(shape)
+    )]
+    DataLength {
+        /// The requested shape.
+        shape: Vec<usize>,
+        /// Product of the shape.
+        expected: usize,
+        /// Length of the data given.
+        found: usize,
+    },
+    /// The layer's signature is malformed (bad dimension spec, duplicate name).
+    #[error("layer `{layer}`: bad signature: {detail}")]
+    Signature {
+        /// Layer type name.
+        layer: String,
+        /// What is wrong.
+        detail: String,
+    },
+    /// The layer has nothing to check: no differentiable tensor or no output.
+    #[error("layer `{layer}` has nothing to check: {detail}")]
+    EmptyLayer {
+        /// Layer type name.
+        layer: String,
+        /// What is missing.
+        detail: String,
+    },
+    /// Wrong number of input or parameter tensors.
+    #[error(
+        "layer `{layer}` expects {expected} {role} tensor(s) ({names}), but {found} were given"
+    )]
+    ArgumentCount {
+        /// Layer type name.
+        layer: String,
+        /// "input" or "parameter".
+        role: &'static str,
+        /// Count in the signature.
+        expected: usize,
+        /// Names in the signature, comma separated.
+        names: String,
+        /// Count given.
+        found: usize,
+    },
+    /// An argument tensor whose shape does not fit the signature.
+    #[error(
+        "{role} `{tensor}` has shape {}, but the signature wants {expected}: {detail}",
+        crate::tensor::shape_string(found)
+    )]
+    ArgumentShape {
+        /// Tensor name.
+        tensor: String,
+        /// "input" or "parameter".
+        role: &'static str,
+        /// The signature's dims, e.g. `[batch, 3]`.
+        expected: String,
+        /// The shape given.
+        found: Vec<usize>,
+        /// Which axis disagrees and why.
+        detail: String,
+    },
+    /// `forward` returned the wrong number of outputs.
+    #[error("layer `{layer}`: {call} returned {found} output(s), but the signature declares {expected} ({names})")]
+    OutputCount {
+        /// Layer type name.
+        layer: String,
+        /// Which call, e.g. `forward (first call)`.
+        call: String,
+        /// Declared outputs.
+        expected: usize,
+        /// Names declared.
+        names: String,
+        /// Outputs returned.
+        found: usize,
+    },
+    /// `forward` returned an output whose shape does not fit the signature.
+    #[error("layer `{layer}`: {call} returned output `{output}` of shape {}, but the signature wants {expected}: {detail}", crate::tensor::shape_string(found))]
+    OutputShape {
+        /// Layer type name.
+        layer: String,
+        /// Which call.
+        call: String,
+        /// Output name.
+        output: String,
+        /// The signature's dims.
+        expected: String,
+        /// The shape returned.
+        found: Vec<usize>,
+        /// Which axis disagrees and why.
+        detail: String,
+    },
+    /// A setting given through the API or an environment variable is invalid.
+    #[error("setting `{setting}` = `{value}` is invalid: {detail}")]
+    Setting {
+        /// The setting or environment variable.
+        setting: String,
+        /// The value given.
+        value: String,
+        /// What is accepted.
+        detail: String,
+    },
+    /// Writing a report file failed.
+    #[error("could not write report `{path}`: {detail}")]
+    ReportIo {
+        /// The file.
+        path: String,
+        /// The I/O error, as text.
+        detail: String,
+    },
+}

@@ -1,0 +1,67 @@
+//! The one home of number formatting: every number in every rendering
+//! goes through here.
+
+/// A number with 4 significant digits in scientific notation (`-1.234e-5`),
+/// `0` for zero, `NaN`, `inf`, `-inf`.
+///
+/// Scientific notation for all magnitudes keeps columns comparable at a
+/// glance: the exponent lines up with the exponent.
+pub(crate) fn num(x: f64) -> String {
+    if x == 0.0 {
+        "0".to_string()
+    } else if x.is_nan() {
+        "NaN".to_string()
+    } else if x.is_infinite() {
+        if x > 0.0 { "inf" } else { "-inf" }.to_string()
+    } else {
+        format!("{x:.3e}")
+    }
+}
+
+/// A short error figure with 2 significant digits (`3.1e-12`).
+pub(crate) fn err(x: f64) -> String {
+    if x == 0.0 || !x.is_finite() {
+        num(x)
+    } else {
+        format!("{x:.1e}")
+    }
+}
+
+/// Shortens `s` to at most `max` characters by cutting out its middle.
+pub(crate) fn shorten_middle(s: &str, max: usize) -> String {
+    let n = s.chars().count();
+    if n <= max || max < 5 {
+        return s.to_string();
+    }
+    let keep = max - 1;
+    let head = keep.div_ceil(2);
+    let tail = keep - head;
+    let chars: Vec<char> = s.chars().collect();
+    let mut out: String = chars[..head].iter().collect();
+    out.push('…');
+    out.extend(&chars[n - tail..]);
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn numbers() {
+        assert_eq!(num(0.0), "0");
+        assert_eq!(num(-1.23456e-5), "-1.235e-5");
+        assert_eq!(num(f64::NAN), "NaN");
+        assert_eq!(num(f64::NEG_INFINITY), "-inf");
+        assert_eq!(err(3.14159e-12), "3.1e-12");
+    }
+
+    #[test]
+    fn shortening_keeps_both_ends() {
+        assert_eq!(
+            shorten_middle("encoder.block3.attention.w_query", 15),
+            "encoder…w_query"
+        );
+        assert_eq!(shorten_middle("short", 15), "short");
+    }
+}

@@ -1,0 +1,277 @@
+//! An owned, row-major tensor: a shape and its contiguous data.
+
+use std::fmt;
+
+use crate::error::Error;
+
+/// An owned, row-major (C order) tensor of scalars.
+///
+/// The data of element `[i, j, k]` of a `[a, b, c]` tensor sits at flat
+/// position `(i * b + j) * c + k`. A rank-0 tensor (shape `[]`) holds one
+/// scalar.
+///
+/// Constructors check that the data fits the shape and return an
+/// [`Error`] otherwise; accessors return `Option` rather than panic.
+///
+/// ```
+/// use plumbline::Tensor;
+/// let t = Tensor::new(vec![2, 3], vec![1.0, 2.0, 3.0, 4.0, 5.0, 6.0])?;
+/// assert_eq!(t.get(&[1, 0]), Some(4.0));
+/// assert_eq!(t.index_of(4).to_string(), "[1, 1]");
+/// assert!(Tensor::new(vec![2, 2], vec![1.0_f64]).is_err());
+/// # Ok::<(), plumbline::Error>(())
+/// ```
+#[derive(Clone, Debug, PartialEq)]
+pub struct Tensor<T> {
+    shape: Vec<usize>,
+    data: Vec<T>,
+}
+
+impl<T: Copy> Tensor<T> {
+    /// A tensor from a shape and row-major data; errors if
+    /// `data.len()` is not the product of `shape`.
+    pub fn new(shape: Vec<usize>, data: Vec<T>) -> Result<Self, Error> {
+        let expected = shape.iter().product::<usize>();
+        if expected != data.len() {
+            return Err(Error::DataLength {
+                shape,
+                expected,
+                found: data.len(),
+            });
+        }
+        Ok(Tensor { shape, data })
+    }
+
+    /// A tensor whose element at each multi-index is `f(index)`.
+    ///
+    /// ```
+    /// use plumbline::Tensor;
+    /// let eye = Tensor::from_fn(vec![2, 2], |ix| if ix[0] == ix[1] { 1.0 } else { 0.0 });
+    /// assert_eq!(eye.data(), &[1.0, 0.0, 0.0, 1.0]);
+    /// ```
+    pub fn from_fn(shape: Vec<usize>, mut f: impl FnMut(&[usize]) -> T) -> Self {
+        let n = shape.iter().product::<usize>();
+        let mut ix = vec![0; shape.len()];
+        let mut data = Vec::with_capacity(n);
+        for _ in 0..n {
+            data.push(f(&ix));
+            for axis in (0..shape.len()).rev() {
+                ix[axis] += 1;
+                if ix[axis] < shape[axis] {
+                    break;
+                }
+                ix[axis] = 0;
+            }
+        }
+        Tensor { shape, data }
+    }
+
+    /// A tensor of the given shape filled with `value`.
+    ///
+    /// ```
+    /// use plumbline::Tensor;
+    /// assert_eq!(Tensor::full(vec![3], 0.5).data(), &[0.5, 0.5, 0.5]);
+    /// ```
+    pub fn full(shape: Vec<usize>, value: T) -> Self {
+        let n = shape.iter().product::<usize>();
+        Tensor {
+            shape,
+            data: vec![value; n],
+        }
+    }
+
+    /// A rank-0 tensor holding one value.
+    ///
+    /// ```
+    /// use plumbline::Tensor;
+    /// assert_eq!(Tensor::scalar(2.0).shape(), &[] as &[usize]);
+    /// ```
+    pub fn scalar(value: T) -> Self {
+        Tensor {
+            shape: Vec::new(),
+            data: vec![value],
+        }
+    }
+
+    /// The element at a multi-index, or `None` if it is out of bounds or of
+    /// the wrong rank.
+    pub fn get(&self, index: &[usize]) -> Option<T> {
+        self.offset(index).map(|i| self.data[i])
+    }
+
+    /// A mutable reference to the element at a multi-index.
+    pub fn get_mut(&mut self, index: &[usize]) -> Option<&mut T> {
+        self.offset(index).map(move |i| &mut self.data[i])
+    }
+
+    /// The flat position of a multi-index, or `None` if out of bounds.
+    ///
+    /// ```
+    /// use plumbline::Tensor;
+    /// let t = Tensor::full(vec![2, 3, 4], 0.0_f32);
+    /// assert_eq!(t.offset(&[1, 2, 3]), Some(23));
+    /// assert_eq!(t.offset(&[2, 0, 0]), None);
+    /// ```
+    pub fn offset(&self, index: &[usize]) -> Option<usize> {
+        if index.len() != self.shape.len() {
+            return None;
+        }
+        let mut flat = 0;
+        for (&i, &n) in index.iter().zip(&self.shape) {
+            if i >= n {
+                return None;
+            }
+            flat = flat * n + i;
+        }
+        Some(flat)
+    }
+
+    /// Applies `f` to every element, keeping the shape.
+    ///
+    /// ```
+    /// use plumbline::Tensor;
+    /// let t = Tensor::new(vec![2], vec![1.0_f32, -2.0])?;
+    /// assert_eq!(t.map(|x| x as f64 * 2.0).data(), &[2.0, -4.0]);
+    /// # Ok::<(), plumbline::Error>(())
+    /// ```
+    pub fn map<U>(&self, f: impl FnMut(T) -> U) -> Tensor<U> {
+        Tensor {
+            shape: self.shape.clone(),
+            data: self.data.iter().copied().map(f).collect(),
+        }
+    }
+}
+
+impl<T> Tensor<T> {
+    /// The shape, one extent per axis.
+    pub fn shape(&self) -> &[usize] {
+        &self.shape
+    }
+
+    /// The row-major data.
+    pub fn data(&self) -> &[T] {
+        &self.data
+    }
+
+    /// The row-major data, mutable. The shape cannot change.
+    pub fn data_mut(&mut self) -> &mut [T] {
+        &mut self.data
+    }
+
+    /// Consumes the tensor, returning shape and data.
+    pub fn into_parts(self) -> (Vec<usize>, Vec<T>) {
+        (self.shape, self.data)
+    }
+
+    /// Number of elements.
+    pub fn len(&self) -> usize {
+        self.data.len()
+    }
+
+    /// `true` if the tensor has no elements (some extent is 0).
+    pub fn is_empty(&self) -> bool {
+        self.data.is_empty()
+    }
+
+    /// Number of axes.
+    pub fn rank(&self) -> usize {
+        self.shape.len()
+    }
+
+    /// The multi-index of a flat position (unchecked against the length:
+    /// positions past the end wrap on the first axis).
+    pub fn index_of(&self, flat: usize) -> Index {
+        Index::from_flat(&self.shape, flat)
+    }
+}
+
+/// A multi-index into a tensor, rendered as `[i, j, k]` in reports.
+///
+/// ```
+/// use plumbline::Index;
+/// let ix = Index::from_flat(&[2, 3], 5);
+/// assert_eq!(ix.as_slice(), &[1, 2]);
+/// assert_eq!(ix.to_string(), "[1, 2]");
+/// ```
+#[derive(Clone, Debug, PartialEq, Eq, Hash, Default, serde::Serialize, serde::Deserialize)]
+#[serde(transparent)]
+pub struct Index(pub Vec<usize>);
+
+impl Index {
+    /// The multi-index of flat position `flat` in a row-major tensor of
+    /// `shape`.
+    pub fn from_flat(shape: &[usize], mut flat: usize) -> Index {
+        let mut ix = vec![0; shape.len()];
+        for axis in (0..shape.len()).rev() {
+            let n = shape[axis].max(1);
+            ix[axis] = flat % n;
+            flat /= n;
+        }
+        Index(ix)
+    }
+
+    /// The indices, one per axis.
+    pub fn as_slice(&self) -> &[usize] {
+        &self.0
+    }
+}
+
+impl fmt::Display for Index {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str("[")?;
+        for (k, i) in self.0.iter().enumerate() {
+            if k > 0 {
+                f.write_str(", ")?;
+            }
+            write!(f, "{i}")?;
+        }
+        f.write_str("]")
+    }
+}
+
+/// Renders a shape as `[2, 3]`.
+pub(crate) fn shape_string(shape: &[usize]) -> String {
+    Index(shape.to_vec()).to_string()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn flat_and_multi_index_round_trip() {
+        let t = Tensor::from_fn(vec![2, 3, 4], |ix| {
+            (ix[0] * 100 + ix[1] * 10 + ix[2]) as f64
+        });
+        for flat in 0..t.len() {
+            let ix = t.index_of(flat);
+            assert_eq!(t.offset(ix.as_slice()), Some(flat));
+            let want = (ix.0[0] * 100 + ix.0[1] * 10 + ix.0[2]) as f64;
+            assert_eq!(t.data()[flat], want);
+        }
+    }
+
+    #[test]
+    fn rank_zero_and_empty() {
+        let s = Tensor::scalar(3.0_f32);
+        assert_eq!(s.len(), 1);
+        assert_eq!(s.get(&[]), Some(3.0));
+        assert_eq!(s.index_of(0).to_string(), "[]");
+        let e = Tensor::new(vec![0, 3], Vec::<f64>::new()).unwrap();
+        assert!(e.is_empty());
+    }
+
+    #[test]
+    fn mismatch_is_an_error_naming_the_shape() {
+        let err = Tensor::new(vec![2, 3], vec![0.0_f64; 5]).unwrap_err();
+        let msg = err.to_string();
+        assert!(
+            msg.contains("[2, 3]") && msg.contains('6') && msg.contains('5'),
+            "{msg}"
+        );
+        assert_eq!(
+            Tensor::new(vec![2], vec![1.0, 2.0]).unwrap().get(&[2]),
+            None
+        );
+    }
+}
