@@ -89,11 +89,9 @@ pub enum Error {
         found: usize,
     },
     /// `forward` returned an output whose shape does not fit the signature.
-    #[error("layer `{layer}`: {call} returned output `{output}` of shape {}, but the signature wants {expected}: {detail}", crate::tensor::shape_string(found))]
+    #[error("{call} returned output `{output}` of shape {}, but the signature wants {expected}: {detail}", crate::tensor::shape_string(found))]
     OutputShape {
-        /// Layer type name.
-        layer: String,
-        /// Which call.
+        /// Which layer and call, e.g. ``forward of `Dense` (second call)``.
         call: String,
         /// Output name.
         output: String,

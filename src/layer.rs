@@ -565,8 +565,7 @@ impl Signature {
         for (slot, t) in self.outputs.iter().zip(outputs) {
             b.unify(slot, t.shape())
                 .map_err(|detail| Error::OutputShape {
-                    layer: layer.to_string(),
-                    call: call.to_string(),
+                    call: format!("layer `{layer}`: {call}"),
                     output: slot.name.clone(),
                     expected: slot.dims_string(),
                     found: t.shape().to_vec(),

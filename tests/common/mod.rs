@@ -77,7 +77,8 @@ impl<R: Real> GenericLayer for Dense<R> {
                 .map(|s| at(g, &[s, ix[0]]) * at(x, &[s, ix[1]]))
                 .sum()
         });
-        let mut db: Tensor<R> = Tensor::from_fn(vec![o], |ix| (0..n).map(|s| at(g, &[s, ix[0]])).sum());
+        let mut db: Tensor<R> =
+            Tensor::from_fn(vec![o], |ix| (0..n).map(|s| at(g, &[s, ix[0]])).sum());
         match self.bug {
             DenseBug::None | DenseBug::Missing => {}
             DenseBug::SignFlip => dw = dw.map(|v| -v),
