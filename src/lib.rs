@@ -81,6 +81,11 @@
 //! * `gallery`: correct reference layers and planted bugs, as models.
 #![deny(missing_docs)]
 
+/// The README's examples, compiled and run as doctests.
+#[cfg(doctest)]
+#[doc = include_str!("../README.md")]
+pub struct ReadmeDoctests;
+
 mod audit;
 mod complex_step;
 mod diagnosis;
