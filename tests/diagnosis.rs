@@ -352,3 +352,59 @@ fn correct_kinky_layers_never_get_a_failing_diagnosis() {
         }
     }
 }
+
+/// y = √x: NaN in the forward for a negative element.
+struct Root;
+
+impl GenericLayer for Root {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "n").output("y", "n")
+    }
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        vec![a.input(0).map(|x| x.sqrt())]
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let dx = Tensor::from_fn(a.input(0).shape().to_vec(), |ix| {
+            0.5 / at(a.input(0), ix).sqrt() * at(&up[0], ix)
+        });
+        Gradients::from(vec![dx])
+    }
+}
+
+#[test]
+fn non_finite_forward_says_which_output_and_where() {
+    let x = Tensor::new(vec![3], vec![1.0, 4.0, -1.0]).unwrap();
+    let r = Audit::new()
+        .run(&Root, &Args::new(vec![x], vec![]))
+        .unwrap();
+    assert!(!r.passed(), "NaN never passes: {r}");
+    assert_eq!(
+        r.rows[0].diagnosis,
+        Some(Diagnosis::NonFinite {
+            place: "forward output `y` at [2]".into()
+        })
+    );
+}
+
+proptest::proptest! {
+    #![proptest_config(proptest::prelude::ProptestConfig::with_cases(200))]
+    /// Correct layers with ReLU, |x| and max-pool kinks, on a coarse grid of
+    /// values (so zeros and ties are frequent), never get a failing verdict
+    /// or diagnosis.
+    #[test]
+    fn correct_kinky_layer_is_clean_over_random_grid_inputs(
+        xs in proptest::collection::vec(-4i32..=4, 1..6),
+        ps in proptest::collection::vec(-2i32..=2, 2..=8),
+        seed in 0u64..1000,
+    ) {
+        let x = Tensor::new(vec![xs.len()], xs.iter().map(|&v| f64::from(v) * 0.5).collect()).unwrap();
+        let pairs = ps.len() / 2;
+        let p = Tensor::new(vec![pairs, 2], ps[..2 * pairs].iter().map(|&v| f64::from(v) * 0.5).collect()).unwrap();
+        let r = Audit::new().seed(seed).run(&Kinky { abs_at_zero: 0.0 }, &Args::new(vec![x, p], vec![])).unwrap();
+        proptest::prop_assert!(r.passed(), "{}", r);
+        for row in &r.rows {
+            proptest::prop_assert!(row.diagnosis.as_ref().is_none_or(|d| d.is_informational()), "{}", r);
+        }
+    }
+}

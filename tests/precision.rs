@@ -131,3 +131,128 @@ fn f64_layer_norm_no_false_alarm_and_eps_bug_caught() {
     assert_eq!(fa, 0, "false alarms on a correct f64 layer");
     assert_eq!(missed, 0, "eps bug missed in f64");
 }
+
+/// Σᵢ gᵢ ∂yᵢ/∂x_j for every j, by one complex-step forward per j.
+fn vjp_by_complex_step<L: GenericLayer>(layer: &L, x: &[f64], g: &[f64]) -> Vec<f64> {
+    use plumbline::ComplexStep;
+    let h = 1e-20;
+    (0..x.len())
+        .map(|j| {
+            let xs: Vec<ComplexStep<f64>> = x
+                .iter()
+                .enumerate()
+                .map(|(k, &v)| ComplexStep::new(v, if k == j { h } else { 0.0 }))
+                .collect();
+            let args = Args::new(vec![Tensor::new(vec![1, x.len()], xs).unwrap()], vec![]);
+            let y = layer.forward_generic(&args).remove(0);
+            y.data().iter().zip(g).map(|(yi, gi)| gi * yi.im / h).sum()
+        })
+        .collect()
+}
+
+fn ulps(a: f64, b: f64) -> f64 {
+    (a - b).abs() / (f64::EPSILON * b.abs())
+}
+
+#[test]
+fn layer_norm_vjp_matches_the_closed_form_oracle() {
+    // Layer norm without affine, biased variance, eps = 1e-5, x = (1, 2, 4),
+    // g = (0.3, −0.1, 0.5). Closed form dx = (g − mean g − ŷ·mean(g⊙ŷ))/σ̂,
+    // evaluated with mpmath at 40 digits (agrees with mpmath numerical
+    // differentiation to 1e-25).
+    let want = [
+        0.160_355_542_480_978_066_75,
+        -0.240_534_516_385_458_570_34,
+        0.080_178_973_904_480_503_586,
+    ];
+    let (x, g) = ([1.0, 2.0, 4.0], [0.3, -0.1, 0.5]);
+    let cs = vjp_by_complex_step(&LayerNorm::<f64>::new(false), &x, &g);
+    let args = Args::new(vec![Tensor::new(vec![1, 3], x.to_vec()).unwrap()], vec![]);
+    let up = [Tensor::new(vec![1, 3], g.to_vec()).unwrap()];
+    let hand = LayerNorm::<f64>::new(false).backward(&args, &up);
+    for k in 0..3 {
+        // The component sums three terms of size ~0.3 to ~0.16: a few ulp of
+        // the terms, not of the result.
+        assert!(
+            ulps(cs[k], want[k]) < 16.0,
+            "complex step dx[{k}] {} vs {}",
+            cs[k],
+            want[k]
+        );
+        let a = hand.get(0).unwrap().data()[k];
+        assert!(
+            ulps(a, want[k]) < 16.0,
+            "backward dx[{k}] {a} vs {}",
+            want[k]
+        );
+    }
+}
+
+/// Softmax over the last axis, generic.
+struct Softmax;
+
+impl GenericLayer for Softmax {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new()
+            .input("z", "rows, classes")
+            .output("s", "rows, classes")
+    }
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let z = a.input(0);
+        let m = z.data().iter().copied().fold(T::neg_infinity(), T::max);
+        let e: Vec<T> = z.data().iter().map(|&v| (v - m).exp()).collect();
+        let total = e.iter().copied().sum::<T>();
+        vec![Tensor::new(z.shape().to_vec(), e.iter().map(|&v| v / total).collect()).unwrap()]
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let s = &self.forward_generic(a)[0];
+        let g = up[0].data();
+        let dot: f64 = s.data().iter().zip(g).map(|(s, g)| s * g).sum();
+        let dz: Vec<f64> = s.data().iter().zip(g).map(|(s, g)| s * (g - dot)).collect();
+        Gradients::from(vec![Tensor::new(s.shape().to_vec(), dz).unwrap()])
+    }
+}
+
+#[test]
+fn softmax_vjp_matches_the_closed_form_oracle() {
+    // z = (1, 2, 3), g = (0.3, −0.1, 0.5): (Jᵀg)ⱼ = sⱼ(gⱼ − ⟨g, s⟩), evaluated
+    // with mpmath at 40 digits.
+    let want = [
+        -0.003_165_187_100_894_068_068_4,
+        -0.106_495_259_001_952_372_83,
+        0.109_660_446_102_846_440_9,
+    ];
+    let cs = vjp_by_complex_step(&Softmax, &[1.0, 2.0, 3.0], &[0.3, -0.1, 0.5]);
+    for k in 0..3 {
+        // Component 0 cancels (terms ~0.03): judge against the terms' size.
+        assert!(
+            (cs[k] - want[k]).abs() < 8.0 * f64::EPSILON * 0.3,
+            "dz[{k}] {} vs {}",
+            cs[k],
+            want[k]
+        );
+    }
+    let z = Tensor::new(vec![1, 3], vec![1.0, 2.0, 3.0]).unwrap();
+    let r = Audit::new()
+        .run(&Softmax, &Args::new(vec![z], vec![]))
+        .unwrap();
+    assert!(r.passed(), "{r}");
+}
+
+#[test]
+fn fixed_approx_style_bounds_replace_the_error_bar() {
+    let args = input::<f64>(3, 2, 8);
+    let buggy = LayerNorm::<f64>::new(true);
+    // The eps bug is ~1e-4 relative here: a loose fixed bound lets it pass,
+    // a tight one does not; the report says which rule applied.
+    let loose = Audit::new()
+        .max_relative(1e-2)
+        .epsilon(1e-6)
+        .run(&buggy, &args)
+        .unwrap();
+    assert!(loose.passed(), "{loose}");
+    assert!(loose.to_string().contains("max_relative 0.01"), "{loose}");
+    let tight = Audit::new().max_relative(1e-8).run(&buggy, &args).unwrap();
+    assert!(!tight.passed(), "{tight}");
+}
