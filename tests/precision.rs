@@ -3,6 +3,9 @@
 //! "epsilon left out of the backward" bug is caught every time, in f32 and
 //! in f64.
 
+// Check values keep the digits of their source.
+#![allow(clippy::excessive_precision)]
+
 mod common;
 
 use std::marker::PhantomData;
@@ -255,4 +258,69 @@ fn fixed_approx_style_bounds_replace_the_error_bar() {
     assert!(loose.to_string().contains("max_relative 0.01"), "{loose}");
     let tight = Audit::new().max_relative(1e-8).run(&buggy, &args).unwrap();
     assert!(!tight.passed(), "{tight}");
+}
+
+/// y = tanh(x), with the textbook backward g·(1 − y²): correct, but at
+/// saturation `1 − y²` has an absolute rounding error of ~ε however small
+/// the derivative is.
+struct Tanh;
+
+impl GenericLayer for Tanh {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "n").output("y", "n")
+    }
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        vec![a.input(0).map(|x| x.tanh())]
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let x = a.input(0);
+        let dx = Tensor::from_fn(x.shape().to_vec(), |ix| {
+            let t = x.get(ix).unwrap().tanh();
+            up[0].get(ix).unwrap() * (1.0 - t * t)
+        });
+        Gradients::from(vec![dx])
+    }
+}
+
+#[test]
+fn saturated_tanh_with_a_textbook_backward_is_not_a_false_alarm() {
+    for scale in [1.0, 4.0, 8.0, 12.0] {
+        let v = common::values(16, 77);
+        let x = Tensor::new(vec![16], v.iter().map(|t| t * scale).collect()).unwrap();
+        let r = Audit::new()
+            .run(&Tanh, &Args::new(vec![x], vec![]))
+            .unwrap();
+        assert!(r.passed(), "inputs up to {scale}: {r}");
+    }
+}
+
+/// y = 40x − 10 as a plain `Layer` (Ridders in f64): outputs far larger
+/// than the derivative's terms.
+struct Offset;
+
+impl plumbline::Layer for Offset {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "n").output("y", "n")
+    }
+    fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> {
+        vec![a.input(0).map(|x| 40.0 * x - 10.0)]
+    }
+    fn backward(&self, _: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        Gradients::from(vec![up[0].map(|g| 40.0 * g)])
+    }
+}
+
+#[test]
+fn ridders_error_bar_includes_the_rounding_of_large_outputs() {
+    for seed in 0..50 {
+        let x = common::tensor::<f64>(&[6], seed);
+        let r = Audit::new()
+            .seed(seed)
+            .run(&Offset, &Args::new(vec![x], vec![]))
+            .unwrap();
+        assert!(r.passed(), "seed {seed}: {r}");
+        assert_eq!(r.rows[0].scheme, plumbline::Scheme::Ridders);
+    }
 }
