@@ -159,3 +159,58 @@ pub fn args_for<R: Real>(
         })
     })
 }
+
+/// [`args_for`] with the signature and precision of `layer`.
+///
+/// ```
+/// use plumbline::{strategy, Args, Gradients, Layer, Signature, Tensor};
+/// use proptest::strategy::{Strategy, ValueTree};
+///
+/// /// Brood temperature above a set point: y = x − 34.5 (°C).
+/// struct Offset;
+/// impl Layer for Offset {
+///     type Real = f32;
+///     fn signature(&self) -> Signature { Signature::new().input("x", "hive").output("y", "hive") }
+///     fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> { vec![a.input(0).map(|x| x - 34.5)] }
+///     fn backward(&self, _: &Args<f32>, g: &[Tensor<f32>]) -> Gradients<f32> {
+///         Gradients::from(vec![g[0].clone()])
+///     }
+/// }
+///
+/// let mut runner = proptest::test_runner::TestRunner::deterministic();
+/// let args = strategy::layer_args(&Offset, &[("hive", 2..=2)], 30.0..=38.0)
+///     .new_tree(&mut runner).unwrap().current();
+/// assert_eq!(args.input(0).shape(), &[2]);
+/// ```
+pub fn layer_args<L: crate::layer::Layer + ?Sized>(
+    layer: &L,
+    sizes: &[(&str, RangeInclusive<usize>)],
+    values: RangeInclusive<f64>,
+) -> impl Strategy<Value = Args<L::Real>> {
+    args_for::<L::Real>(&layer.signature(), sizes, values)
+}
+
+/// A proptest [`Config`](proptest::test_runner::Config) suited to audits:
+/// `cases` cases, room to shrink (proptest's automatic limit of 4 × cases
+/// stops before drawn values reach their simplest form), and failing cases
+/// persisted beside the test's source file as `<file>.proptest-regressions`
+/// (for a test in `tests/`, where proptest's default location cannot be
+/// found). Commit that file: every later run replays the stored cases
+/// first. `PROPTEST_*` variables change proptest's defaults, not values set
+/// here.
+///
+/// ```
+/// let config = plumbline::strategy::config(24);
+/// assert_eq!(config.cases, 24);
+/// assert_eq!(config.max_shrink_iters, 4096);
+/// ```
+pub fn config(cases: u32) -> proptest::test_runner::Config {
+    proptest::test_runner::Config {
+        cases,
+        max_shrink_iters: 4096,
+        failure_persistence: Some(Box::new(
+            proptest::test_runner::FileFailurePersistence::WithSource("proptest-regressions"),
+        )),
+        ..proptest::test_runner::Config::default()
+    }
+}
