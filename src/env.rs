@@ -119,7 +119,11 @@ fn bad(var: &str, value: &str, detail: &str) -> Error {
 fn positive(var: &str, v: &str) -> Result<f64, Error> {
     match v.trim().parse::<f64>() {
         Ok(x) if x.is_finite() && x > 0.0 => Ok(x),
-        _ => Err(bad(var, v, "expected a positive finite number, e.g. `8` or `0.5`")),
+        _ => Err(bad(
+            var,
+            v,
+            "expected a positive finite number, e.g. `8` or `0.5`",
+        )),
     }
 }
 
@@ -233,9 +237,8 @@ impl Environment {
             })?;
         }
         if let Some(v) = get(COLOR_VAR) {
-            env.color = ColorChoice::parse(&v).ok_or_else(|| {
-                bad(COLOR_VAR, &v, "expected `auto`, `always` or `never`")
-            })?;
+            env.color = ColorChoice::parse(&v)
+                .ok_or_else(|| bad(COLOR_VAR, &v, "expected `auto`, `always` or `never`"))?;
         }
         Ok(env)
     }

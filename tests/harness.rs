@@ -16,7 +16,12 @@ fn lookup(pairs: &[(&str, &str)]) -> impl Fn(&str) -> Option<String> {
         .iter()
         .map(|(k, v)| (k.to_string(), v.to_string()))
         .collect();
-    move |name| pairs.iter().find(|(k, _)| k == name).map(|(_, v)| v.clone())
+    move |name| {
+        pairs
+            .iter()
+            .find(|(k, _)| k == name)
+            .map(|(_, v)| v.clone())
+    }
 }
 
 fn process_env() -> Environment {
@@ -31,7 +36,10 @@ fn bare_form_returns_the_report() {
     assert!(report.passed());
     assert_eq!(report.layer, "HiveScore");
     assert_eq!(report.rows.len(), 3);
-    assert_eq!(report.seed, process_env().seed.unwrap_or(plumbline::DEFAULT_SEED));
+    assert_eq!(
+        report.seed,
+        process_env().seed.unwrap_or(plumbline::DEFAULT_SEED)
+    );
     // Trailing comma accepted.
     let again = assert_backward!(CORRECT, &hive_args(3, 4),);
     assert_eq!(again, report);
@@ -49,7 +57,10 @@ fn key_value_forms_map_onto_the_builder() {
     assert_eq!(r.tolerance.margin, 8.0 * env.margin_factor.unwrap_or(1.0));
 
     let r = assert_backward!(CORRECT, &args, epsilon = 1e-9, max_relative = 1e-7);
-    assert_eq!(r.tolerance.epsilon, Some(1e-9 * env.margin_factor.unwrap_or(1.0)));
+    assert_eq!(
+        r.tolerance.epsilon,
+        Some(1e-9 * env.margin_factor.unwrap_or(1.0))
+    );
 
     let r = assert_backward!(CORRECT, &args, kinks_fail = true, name = "hive score");
     assert!(r.kinks_fail);
@@ -63,14 +74,21 @@ fn key_value_forms_map_onto_the_builder() {
 #[test]
 #[should_panic(expected = "disagrees with its forward in tensor: w")]
 fn a_wrong_gradient_panics_naming_the_tensor() {
-    assert_backward!(HiveScore { bug: HiveBug::WeightSignFlip }, &hive_args(3, 2));
+    assert_backward!(
+        HiveScore {
+            bug: HiveBug::WeightSignFlip
+        },
+        &hive_args(3, 2)
+    );
 }
 
 #[test]
 #[should_panic(expected = "(set PLUMBLINE_SEED=")]
 fn a_failure_names_the_replay_variable() {
     assert_backward!(
-        HiveScore { bug: HiveBug::BiasFromFirstHive },
+        HiveScore {
+            bug: HiveBug::BiasFromFirstHive
+        },
         &hive_args(3, 2),
         seed = 11
     );
@@ -88,7 +106,9 @@ fn misuse_panics_with_the_error_message() {
 fn the_failure_message_is_plain_and_says_what_to_change() {
     let caught = std::panic::catch_unwind(|| {
         assert_backward!(
-            HiveScore { bug: HiveBug::WeightSignFlip },
+            HiveScore {
+                bug: HiveBug::WeightSignFlip
+            },
             &hive_args(2, 2),
             margin = 6.0
         )
@@ -99,13 +119,19 @@ fn the_failure_message_is_plain_and_says_what_to_change() {
         .cloned()
         .unwrap_or_default();
     assert!(msg.contains("sign flipped"), "{msg}");
-    assert!(msg.contains("#  tensor"), "the table is in the message: {msg}");
+    assert!(
+        msg.contains("#  tensor"),
+        "the table is in the message: {msg}"
+    );
     assert!(
         msg.contains("set in code, so PLUMBLINE_MARGIN does not change it"),
         "{msg}"
     );
     assert!(msg.contains("PLUMBLINE_MARGIN_FACTOR"), "{msg}");
-    assert!(!msg.contains('\x1b'), "panic messages carry no colour: {msg}");
+    assert!(
+        !msg.contains('\x1b'),
+        "panic messages carry no colour: {msg}"
+    );
 }
 
 // ---- environment settings ------------------------------------------------
@@ -158,13 +184,17 @@ fn invalid_values_name_the_variable() {
     ] {
         let err = Environment::from_lookup(lookup(&[(var, value)])).unwrap_err();
         match &err {
-            Error::Setting { setting, value: v, .. } => {
+            Error::Setting {
+                setting, value: v, ..
+            } => {
                 assert_eq!(setting, var);
                 assert_eq!(v, value);
             }
             other => panic!("{var}: {other:?}"),
         }
-        assert!(err.to_string().starts_with(&format!("setting `{var}` = `{value}`")));
+        assert!(err
+            .to_string()
+            .starts_with(&format!("setting `{var}` = `{value}`")));
     }
 }
 
@@ -178,14 +208,25 @@ fn code_beats_environment_beats_defaults_except_seed_and_factor() {
     .unwrap();
     // Environment over defaults.
     let s = env.audit(|a| a).settings().clone();
-    assert_eq!((s.tolerance.margin, s.scheme, s.kinks_fail), (6.0, Some(Scheme::Central), true));
+    assert_eq!(
+        (s.tolerance.margin, s.scheme, s.kinks_fail),
+        (6.0, Some(Scheme::Central), true)
+    );
     assert_eq!(s.seed, plumbline::DEFAULT_SEED);
     // Code over environment.
     let s = env
-        .audit(|a| a.margin(9.0).scheme(Scheme::Ridders).kinks_fail(false).seed(4))
+        .audit(|a| {
+            a.margin(9.0)
+                .scheme(Scheme::Ridders)
+                .kinks_fail(false)
+                .seed(4)
+        })
         .settings()
         .clone();
-    assert_eq!((s.tolerance.margin, s.scheme, s.kinks_fail, s.seed), (9.0, Some(Scheme::Ridders), false, 4));
+    assert_eq!(
+        (s.tolerance.margin, s.scheme, s.kinks_fail, s.seed),
+        (9.0, Some(Scheme::Ridders), false, 4)
+    );
 
     // The replay seed and the factor win over code.
     let env = Environment::from_lookup(lookup(&[
@@ -193,7 +234,10 @@ fn code_beats_environment_beats_defaults_except_seed_and_factor() {
         ("PLUMBLINE_MARGIN_FACTOR", "2"),
     ]))
     .unwrap();
-    let s = env.audit(|a| a.seed(4).margin(3.0).epsilon(1e-6)).settings().clone();
+    let s = env
+        .audit(|a| a.seed(4).margin(3.0).epsilon(1e-6))
+        .settings()
+        .clone();
     assert_eq!(s.seed, 0xBEE);
     assert_eq!(s.tolerance.margin, 6.0);
     assert_eq!(s.tolerance.epsilon, Some(2e-6));
@@ -211,7 +255,10 @@ fn a_tighter_factor_changes_the_outcome() {
         .unwrap();
     let eps = r.tolerance.epsilon.unwrap();
     assert!((eps - 1e-21).abs() < 1e-35, "{eps}");
-    let loose = Audit::new().epsilon(1e-9).run(&CORRECT, &hive_args(2, 2)).unwrap();
+    let loose = Audit::new()
+        .epsilon(1e-9)
+        .run(&CORRECT, &hive_args(2, 2))
+        .unwrap();
     assert!(loose.passed(), "{loose}");
     // Complex-step references agree to ~1e-16, so 1e-21 is beyond reach
     // for at least one element.
@@ -247,7 +294,12 @@ fn failing_report() -> Report {
     let mut r = Audit::new()
         .seed(7)
         .name("apiary.north_field.hive_health_score")
-        .run(&HiveScore { bug: HiveBug::WeightSignFlip }, &hive_args(2, 2))
+        .run(
+            &HiveScore {
+                bug: HiveBug::WeightSignFlip,
+            },
+            &hive_args(2, 2),
+        )
         .unwrap();
     // Long names, as nested modules produce them.
     for row in &mut r.rows {
@@ -267,12 +319,28 @@ fn a_width_limit_shortens_text_cells_in_the_middle_and_keeps_numbers() {
     let report = failing_report();
     let wide = rendered(&report, &Style::plain());
     assert_eq!(wide, report.to_string());
-    let longest = |s: &str| s.lines().skip(1).take(4).map(|l| l.chars().count()).max().unwrap();
+    let longest = |s: &str| {
+        s.lines()
+            .skip(1)
+            .take(4)
+            .map(|l| l.chars().count())
+            .max()
+            .unwrap()
+    };
     let limit = longest(&wide) - 10;
-    let narrow = rendered(&report, &Style { color: false, width: Some(limit) });
+    let narrow = rendered(
+        &report,
+        &Style {
+            color: false,
+            width: Some(limit),
+        },
+    );
     // Header and rows (not the title and footer lines) fit.
     for line in narrow.lines().skip(1).take(4) {
-        assert!(line.chars().count() <= limit, "{line:?} is wider than {limit}");
+        assert!(
+            line.chars().count() <= limit,
+            "{line:?} is wider than {limit}"
+        );
     }
     assert!(narrow.contains('…'), "{narrow}");
     // Numbers are never cut: every number of the wide table is still there.
@@ -289,7 +357,13 @@ fn a_width_limit_shortens_text_cells_in_the_middle_and_keeps_numbers() {
 fn colour_only_when_asked_and_the_rows_line_up() {
     let report = failing_report();
     let plain = rendered(&report, &Style::plain());
-    let coloured = rendered(&report, &Style { color: true, width: None });
+    let coloured = rendered(
+        &report,
+        &Style {
+            color: true,
+            width: None,
+        },
+    );
     assert!(!plain.contains('\x1b'));
     assert!(coloured.contains("\x1b[1;31mFAIL"), "{coloured:?}");
     // Header and rows align: the verdict column starts at the same place.
@@ -297,20 +371,36 @@ fn colour_only_when_asked_and_the_rows_line_up() {
     let at = lines[0].find("verdict").unwrap();
     for l in &lines[1..] {
         let cell = &l[at..];
-        assert!(cell.starts_with("FAIL") || cell.starts_with("ok"), "{plain}");
+        assert!(
+            cell.starts_with("FAIL") || cell.starts_with("ok"),
+            "{plain}"
+        );
     }
 }
 
 #[test]
 fn exact_text_at_a_width() {
     let report = failing_report();
-    let text = rendered(&report, &Style { color: false, width: Some(130) });
+    let text = rendered(
+        &report,
+        &Style {
+            color: false,
+            width: Some(130),
+        },
+    );
     // The rows and header only: the bounds' last digits depend on rounding.
     let table: Vec<String> = text
         .lines()
         .skip(1)
         .take(4)
-        .map(|l| l.split("  bound").next().unwrap_or(l).chars().take(76).collect())
+        .map(|l| {
+            l.split("  bound")
+                .next()
+                .unwrap_or(l)
+                .chars()
+                .take(76)
+                .collect()
+        })
         .collect();
     assert_eq!(
         table,
@@ -323,5 +413,9 @@ fn exact_text_at_a_width() {
         .map(|s| s.chars().take(76).collect::<String>()),
         "{text}"
     );
-    assert!(text.lines().skip(1).take(4).all(|l| l.chars().count() <= 130));
+    assert!(text
+        .lines()
+        .skip(1)
+        .take(4)
+        .all(|l| l.chars().count() <= 130));
 }

@@ -7,8 +7,8 @@ mod hive;
 
 use hive::{HiveBug, HiveScore, CORRECT};
 use plumbline::{
-    check_layer, check_layer_with, strategy, Args, Audit, CaseOutcome, Gradients,
-    Layer, Signature, Tensor,
+    check_layer, check_layer_with, strategy, Args, Audit, CaseOutcome, Gradients, Layer, Signature,
+    Tensor,
 };
 use proptest::prelude::*;
 use proptest::test_runner::{Config, RngAlgorithm, TestError, TestRng, TestRunner};
@@ -42,7 +42,9 @@ proptest! {
 
 #[test]
 fn a_batch_bug_is_found_and_shrunk_to_two_hives() {
-    let buggy = HiveScore { bug: HiveBug::BiasFromFirstHive };
+    let buggy = HiveScore {
+        bug: HiveBug::BiasFromFirstHive,
+    };
     let config = Config {
         cases: 32,
         // proptest's automatic limit is 4 × cases; drawn values shrink one
@@ -69,7 +71,10 @@ fn a_batch_bug_is_found_and_shrunk_to_two_hives() {
     assert_eq!(minimal.param(0).shape(), &[1, 1]);
     assert_eq!(minimal.param(1).shape(), &[1]);
     let message = reason.to_string();
-    assert!(message.contains("disagrees with its forward in tensor: b"), "{message}");
+    assert!(
+        message.contains("disagrees with its forward in tensor: b"),
+        "{message}"
+    );
     assert!(message.contains("PLUMBLINE_SEED="), "{message}");
     // One hive is a case the bug cannot show in: it passes.
     let (inputs, params) = minimal.into_parts();
@@ -96,7 +101,11 @@ impl Layer for Magnitude {
         let flip = if self.flip_elsewhere { -1.0 } else { 1.0 };
         let dx = Tensor::from_fn(a.input(0).shape().to_vec(), |ix| {
             let x = a.input(0).get(ix).unwrap_or(f64::NAN);
-            let d = if x == 0.0 { self.at_zero } else { flip * x.signum() };
+            let d = if x == 0.0 {
+                self.at_zero
+            } else {
+                flip * x.signum()
+            };
             d * g[0].get(ix).unwrap_or(f64::NAN)
         });
         Gradients::from(vec![dx])
@@ -106,25 +115,43 @@ impl Layer for Magnitude {
 #[test]
 fn kinks_are_rejected_not_failed() {
     let x = Args::new(vec![Tensor::new(vec![2], vec![0.0, 0.5]).unwrap()], vec![]);
-    let wrong_at_kink = Magnitude { at_zero: 3.0, flip_elsewhere: false };
+    let wrong_at_kink = Magnitude {
+        at_zero: 3.0,
+        flip_elsewhere: false,
+    };
     for kinks_fail in [false, true] {
-        let r = Audit::new().kinks_fail(kinks_fail).run(&wrong_at_kink, &x).unwrap();
+        let r = Audit::new()
+            .kinks_fail(kinks_fail)
+            .run(&wrong_at_kink, &x)
+            .unwrap();
         assert_eq!(r.rows[0].kinks, 1, "{r}");
         assert_eq!(CaseOutcome::of(&r), CaseOutcome::Reject, "{r}");
     }
     let rejected = check_layer_with(&wrong_at_kink, &x, |a| a.kinks_fail(true));
-    assert!(matches!(rejected, Err(TestCaseError::Reject(_))), "{rejected:?}");
+    assert!(
+        matches!(rejected, Err(TestCaseError::Reject(_))),
+        "{rejected:?}"
+    );
 
     // A subgradient that fits (sign(0) = 1 lies in [−1, 1]) passes.
-    let fits = Magnitude { at_zero: 1.0, flip_elsewhere: false };
+    let fits = Magnitude {
+        at_zero: 1.0,
+        flip_elsewhere: false,
+    };
     let r = Audit::new().kinks_fail(true).run(&fits, &x).unwrap();
     assert_eq!(CaseOutcome::of(&r), CaseOutcome::Pass, "{r}");
 
     // A real failure elsewhere fails even with a kink in the same tensor.
-    let both = Magnitude { at_zero: 3.0, flip_elsewhere: true };
+    let both = Magnitude {
+        at_zero: 3.0,
+        flip_elsewhere: true,
+    };
     let r = Audit::new().run(&both, &x).unwrap();
     assert_eq!(CaseOutcome::of(&r), CaseOutcome::Fail, "{r}");
-    assert!(matches!(check_layer(&both, &x), Err(TestCaseError::Fail(_))));
+    assert!(matches!(
+        check_layer(&both, &x),
+        Err(TestCaseError::Fail(_))
+    ));
 }
 
 #[test]
@@ -137,7 +164,10 @@ fn our_error_converts_into_a_test_failure_with_question_mark() {
     match case() {
         Err(TestCaseError::Fail(reason)) => {
             let msg = reason.to_string();
-            assert!(msg.contains("expects 2 parameter tensor(s) (`w`, `b`)"), "{msg}");
+            assert!(
+                msg.contains("expects 2 parameter tensor(s) (`w`, `b`)"),
+                "{msg}"
+            );
         }
         other => panic!("{other:?}"),
     }

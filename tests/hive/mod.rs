@@ -56,11 +56,19 @@ impl GenericLayer for HiveScore {
             at(&up[0], ix) * (1.0 - t * t)
         });
         let dx = Tensor::from_fn(vec![n, k], |ix| {
-            (0..s).map(|o| at(&dz, &[ix[0], o]) * at(w, &[o, ix[1]])).sum()
+            (0..s)
+                .map(|o| at(&dz, &[ix[0], o]) * at(w, &[o, ix[1]]))
+                .sum()
         });
-        let sign = if self.bug == HiveBug::WeightSignFlip { -1.0 } else { 1.0 };
+        let sign = if self.bug == HiveBug::WeightSignFlip {
+            -1.0
+        } else {
+            1.0
+        };
         let dw = Tensor::from_fn(vec![s, k], |ix| {
-            sign * (0..n).map(|h| at(&dz, &[h, ix[0]]) * at(x, &[h, ix[1]])).sum::<f64>()
+            sign * (0..n)
+                .map(|h| at(&dz, &[h, ix[0]]) * at(x, &[h, ix[1]]))
+                .sum::<f64>()
         });
         let db = Tensor::from_fn(vec![s], |ix| match self.bug {
             HiveBug::BiasFromFirstHive => at(&dz, &[0, ix[0]]),
