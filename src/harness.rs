@@ -194,19 +194,20 @@ impl CaseOutcome {
 /// files hold the minimal failing case.
 ///
 /// ```
-/// use plumbline::{check_layer, strategy, Args, Gradients, Layer, Signature, Tensor};
+/// use plumbline::{check_layer, strategy, Args, GenericLayer, Gradients, Scalar, Signature, Tensor};
 /// use proptest::prelude::*;
 ///
 /// /// Hive temperature in °C from a thermistor reading: y = 40·x − 10.
 /// struct Thermistor;
 ///
-/// impl Layer for Thermistor {
+/// impl GenericLayer for Thermistor {
 ///     type Real = f64;
 ///     fn signature(&self) -> Signature {
 ///         Signature::new().input("reading", "hive, sensor").output("celsius", "hive, sensor")
 ///     }
-///     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> {
-///         vec![a.input(0).map(|x| 40.0 * x - 10.0)]
+///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+///         let (k, c) = (T::from(40.0).unwrap(), T::from(10.0).unwrap());
+///         vec![a.input(0).map(|x| k * x - c)]
 ///     }
 ///     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
 ///         Gradients::from(vec![g[0].map(|g| 40.0 * g)])
@@ -216,7 +217,7 @@ impl CaseOutcome {
 /// let sizes = [("hive", 1..=3), ("sensor", 1..=4)];
 /// let mut runner = proptest::test_runner::TestRunner::new(ProptestConfig::with_cases(8));
 /// runner
-///     .run(&strategy::args_for(&Thermistor.signature(), &sizes, -1.0..=1.0), |args| {
+///     .run(&strategy::layer_args(&Thermistor, &sizes, -1.0..=1.0), |args| {
 ///         check_layer(&Thermistor, &args)?;
 ///         Ok(())
 ///     })
