@@ -91,9 +91,10 @@ pub fn table(report: &Report, style: &Style) -> String {
             *w = (*w).max(c.chars().count());
         }
     }
-    if let Some(limit) = style.width {
-        fit(&mut widths, limit);
-    }
+    let shown = match style.width {
+        Some(limit) => fit(&mut widths, limit),
+        None => [true; COLS],
+    };
     let failing = report.failures().count();
     let mut out = String::new();
     let _ = writeln!(
@@ -112,7 +113,11 @@ pub fn table(report: &Report, style: &Style) -> String {
     );
     for (i, row) in rows.iter().enumerate() {
         let mut line = String::new();
+        let last = (0..COLS).rev().find(|&k| shown[k]).unwrap_or(0);
         for (k, c) in row.iter().enumerate() {
+            if !shown[k] {
+                continue;
+            }
             let text = if NUMERIC[k] {
                 c.clone()
             } else {
@@ -124,7 +129,7 @@ pub fn table(report: &Report, style: &Style) -> String {
             }
             let cell = if NUMERIC[k] {
                 format!("{}{text}", " ".repeat(pad))
-            } else if k + 1 == row.len() {
+            } else if k == last {
                 text
             } else {
                 format!("{text}{}", " ".repeat(pad))
@@ -154,19 +159,44 @@ fn schemes(report: &Report) -> String {
     }
 }
 
-/// Shrinks the text columns, widest first, until the table fits.
-fn fit(widths: &mut [usize; COLS], limit: usize) {
-    let total = |w: &[usize; COLS]| w.iter().sum::<usize>() + 2 * (w.len() - 1);
-    while total(widths) > limit {
-        let Some((k, _)) = widths
-            .iter()
-            .enumerate()
-            .filter(|&(k, &w)| !NUMERIC[k] && w > 8)
-            .max_by_key(|&(_, &w)| w)
-        else {
-            break;
-        };
-        widths[k] -= 1;
+/// Columns that may be left out of a narrow table, least useful first:
+/// abs err, checked, bound, role, bad.
+const DROPPABLE: [usize; 5] = [10, 4, 9, 2, 5];
+/// The narrowest a text column is shortened to (tensor, shape, worst at,
+/// diagnosis); other text columns are never shortened.
+const MIN_TEXT: [(usize, usize); 4] = [(1, 10), (3, 7), (6, 7), (13, 16)];
+
+/// Fits the table into `limit` columns: first shortens text columns in the
+/// middle (widest first, down to their minimum), then leaves out the least
+/// useful columns, re-widening text columns for the room that frees.
+/// Returns which columns are shown.
+fn fit(widths: &mut [usize; COLS], limit: usize) -> [bool; COLS] {
+    let natural = *widths;
+    let mut shown = [true; COLS];
+    let total = |w: &[usize; COLS], shown: &[bool; COLS]| {
+        let n = shown.iter().filter(|&&s| s).count();
+        (0..COLS).filter(|&k| shown[k]).map(|k| w[k]).sum::<usize>() + 2 * n.saturating_sub(1)
+    };
+    let mut drops = DROPPABLE.iter();
+    loop {
+        *widths = natural;
+        while total(widths, &shown) > limit {
+            let Some(&(k, _)) = MIN_TEXT
+                .iter()
+                .filter(|&&(k, min)| shown[k] && widths[k] > min)
+                .max_by_key(|&&(k, min)| widths[k] - min)
+            else {
+                break;
+            };
+            widths[k] -= 1;
+        }
+        if total(widths, &shown) <= limit {
+            return shown;
+        }
+        match drops.next() {
+            Some(&k) => shown[k] = false,
+            None => return shown,
+        }
     }
 }
 

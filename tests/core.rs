@@ -210,3 +210,47 @@ fn complex_step_on_a_plain_layer_is_a_setting_error() {
     assert!(r.passed(), "{r}");
     assert_eq!(r.rows[0].scheme, Scheme::Ridders);
 }
+
+#[test]
+fn narrow_tables_keep_verdict_and_diagnosis_and_fit_the_width() {
+    let r = Audit::new()
+        .name("orchard.frost_model.hidden_layer_with_a_long_name")
+        .run(
+            &Dense::<f64>::new(DenseBug::SignFlip),
+            &dense_args(4, 3, 2, 7),
+        )
+        .unwrap();
+    for width in [80, 100] {
+        let text = plumbline::table(
+            &r,
+            &plumbline::Style {
+                color: false,
+                width: Some(width),
+            },
+        );
+        let lines: Vec<&str> = text.lines().skip(1).take(r.rows.len() + 1).collect();
+        for l in &lines {
+            assert!(l.chars().count() <= width, "width {width}: {l:?}\n{text}");
+        }
+        assert!(
+            lines[0].contains("verdict") && lines[0].contains("diagnosis"),
+            "{text}"
+        );
+        assert!(
+            lines[1].contains("FAIL") && lines[1].contains("sign flipped"),
+            "{text}"
+        );
+    }
+    // Wide enough: every column.
+    let text = plumbline::table(
+        &r,
+        &plumbline::Style {
+            color: false,
+            width: Some(200),
+        },
+    );
+    assert!(
+        text.contains("abs err") && text.contains("checked"),
+        "{text}"
+    );
+}

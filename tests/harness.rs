@@ -407,7 +407,7 @@ fn exact_text_at_a_width() {
         [
             "#  tensor            role   shape   checked  bad  worst at   analytic    numeric",
             "1  apiary.n…score.w  param  [2, 2]        4    4  [0, 0]     6.526e-1  -6.526e-1",
-            "2  apiary.n…eadings  input  [2, 2]        4    0  [1, 0]    -6.774e-3  -6.774e-3",
+            "2  apiary.n…eadings  input  [2, 2]        4    0  [1, 1]     4.811e-1   4.811e-1",
             "3  apiary.n…score.b  param  [2]           2    0  [1]       -3.618e-2  -3.618e-2",
         ]
         .map(|s| s.chars().take(76).collect::<String>()),
