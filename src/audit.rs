@@ -7,7 +7,7 @@ use crate::complex_step::ComplexStep;
 use crate::diagnosis::{self, Evidence};
 use crate::error::Error;
 use crate::layer::{Args, Layer, ReferenceForward, Role, Signature};
-use crate::report::{ElementCheck, ElementStatus, Report, Row, Verdict, Worst};
+use crate::report::{ElementCheck, ElementStatus, JointKink, Report, Row, Verdict, Worst};
 use crate::scalar::Real;
 use crate::scheme::{self, Estimate, KinkProbe, Line, Pair, Sample, Scheme};
 use crate::tensor::{Index, Tensor};
@@ -215,7 +215,10 @@ impl Audit {
                 estimates,
                 scheme,
                 L::Real::EPS,
-                &mut |j| numeric.kink(slot_index, j, &w, &mut counts),
+                &mut |probe| match probe {
+                    Probe::One(j) => numeric.kink(slot_index, j, &w, &mut counts),
+                    Probe::Group(group) => Some(numeric.joint(slot_index, group, &w, &mut counts)),
+                },
                 &evidence,
             );
             rows.push(row);
@@ -248,7 +251,7 @@ impl Audit {
         estimates: Vec<Estimate>,
         scheme: Scheme,
         layer_eps: f64,
-        kink: &mut dyn FnMut(usize) -> Option<KinkProbe>,
+        kink: &mut dyn FnMut(Probe<'_>) -> Option<KinkProbe>,
         evidence: &Evidence,
     ) -> Row {
         let tol = &self.settings.tolerance;
@@ -277,7 +280,7 @@ impl Audit {
                 ElementStatus::Disagrees
             };
             if status == ElementStatus::Disagrees {
-                if let Some(probe) = kink(j) {
+                if let Some(probe) = kink(Probe::One(j)) {
                     let lo = probe.left.min(probe.right) - bound - probe.noise;
                     let hi = probe.left.max(probe.right) + bound + probe.noise;
                     status = ElementStatus::Kink {
@@ -295,6 +298,40 @@ impl Audit {
                 status,
             });
         }
+        // Several elements at kinks (max-pool ties, ReLUs at 0) are also
+        // moved together: the analytic values must add up to a value between
+        // the joint one-sided derivatives. Ties routed to every maximum fit
+        // one by one but not together.
+        // Once a tensor has a kink, its agreeing elements are probed too:
+        // an element that matched the reference by the luck of a tie is at a
+        // kink all the same and belongs in the joint move.
+        if elements.iter().any(|e| e.status.is_kink()) {
+            for (j, e) in elements.iter_mut().enumerate() {
+                if e.status == ElementStatus::Agrees {
+                    if let Some(probe) = kink(Probe::One(j)) {
+                        e.status = ElementStatus::Kink { probe, fits: true };
+                    }
+                }
+            }
+        }
+        let kinked: Vec<usize> = (0..elements.len())
+            .filter(|&j| elements[j].status.is_kink())
+            .collect();
+        let joint_kink = if kinked.len() >= 2 {
+            kink(Probe::Group(&kinked)).and_then(|p| {
+                let sum: f64 = kinked.iter().map(|&j| elements[j].analytic).sum();
+                let slack: f64 = kinked.iter().map(|&j| elements[j].bound).sum::<f64>() + p.noise;
+                let (lo, hi) = (p.left.min(p.right) - slack, p.left.max(p.right) + slack);
+                (!(lo..=hi).contains(&sum)).then_some(JointKink {
+                    elements: kinked.len(),
+                    analytic_sum: sum,
+                    left: p.left,
+                    right: p.right,
+                })
+            })
+        } else {
+            None
+        };
         let kinks_fail = self.settings.kinks_fail;
         let fails = |e: &ElementCheck| {
             e.status.is_failure()
@@ -343,6 +380,7 @@ impl Audit {
             Some(_) if !same_shape => Verdict::WrongShape,
             Some(_)
                 if disagreeing > 0
+                    || joint_kink.is_some()
                     || evidence.forward_change.is_some()
                     || evidence.backward_change.is_some() =>
             {
@@ -367,6 +405,7 @@ impl Audit {
             max_abs_error: max_abs,
             max_rel_error: max_rel,
             verdict,
+            joint_kink,
             diagnosis: None,
             shape,
             elements,
@@ -383,6 +422,13 @@ pub(crate) fn relative_error(a: f64, n: f64) -> f64 {
         return 0.0;
     }
     d / a.abs().max(n.abs())
+}
+
+/// What `compare` asks the reference for: the kink test at one element, or
+/// one-sided derivatives for a joint move of several.
+enum Probe<'a> {
+    One(usize),
+    Group(&'a [usize]),
 }
 
 #[derive(Default)]
@@ -545,6 +591,37 @@ impl<'a, L: Layer + ?Sized> References<'a, L> {
     }
 }
 
+impl<L: Layer + ?Sized> References<'_, L> {
+    /// One-sided derivatives for a joint move of several elements.
+    fn joint(
+        &mut self,
+        slot: usize,
+        group: &[usize],
+        w: &[Vec<f64>],
+        counts: &mut Counts,
+    ) -> KinkProbe {
+        match self {
+            References::Own {
+                layer,
+                work,
+                scheme,
+            } => {
+                let forward = |a: &Args<L::Real>| layer.forward(a);
+                joint_at(work, &forward, w, slot, group, *scheme, counts)
+            }
+            References::Generic {
+                forward,
+                real,
+                scheme,
+                ..
+            } => {
+                let f = |a: &Args<f64>| forward.forward_f64(a);
+                joint_at(real, &f, w, slot, group, *scheme, counts)
+            }
+        }
+    }
+}
+
 /// Complex-step estimates for every element of one tensor: one complex
 /// forward each, with x_j + i·h set in place and reset after.
 fn complex_step_all(
@@ -613,6 +690,15 @@ fn estimate_all<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
     out
 }
 
+/// The widest step a scheme's stencil reaches, for the kink test.
+fn kink_step(scheme: Scheme, eps: f64, scale: f64) -> f64 {
+    match scheme {
+        Scheme::Ridders => 0.1 * scale,
+        Scheme::Central => 2.0 * eps.cbrt() * scale,
+        Scheme::ComplexStep => eps.cbrt() * scale,
+    }
+}
+
 fn kink_at<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
     work: &mut Args<U>,
     forward: &F,
@@ -624,13 +710,7 @@ fn kink_at<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
 ) -> Option<KinkProbe> {
     let mut line = ArgLine::new(work, forward, w, slot);
     line.select(j);
-    let scale = line.scale();
-    // Probe over the widest step the reference used.
-    let h = match scheme {
-        Scheme::Ridders => 0.1 * scale,
-        Scheme::Central => 2.0 * U::EPS.cbrt() * scale,
-        Scheme::ComplexStep => U::EPS.cbrt() * scale,
-    };
+    let h = kink_step(scheme, U::EPS, line.scale());
     let probe = scheme::kink_test(&mut line, h);
     counts.forward += line.evals;
     // For the complex step only a kink at the point itself matters: one
@@ -638,14 +718,33 @@ fn kink_at<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
     probe.filter(|p| scheme != Scheme::ComplexStep || p.at_point)
 }
 
-/// The probe φ(t) = Σ wᵢ yᵢ(x + t·e_j), moving one element in place.
+/// One-sided derivatives for a joint move of a group of elements.
+fn joint_at<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
+    work: &mut Args<U>,
+    forward: &F,
+    w: &[Vec<f64>],
+    slot: usize,
+    group: &[usize],
+    scheme: Scheme,
+    counts: &mut Counts,
+) -> KinkProbe {
+    let mut line = ArgLine::new(work, forward, w, slot);
+    line.select_group(group);
+    let h = kink_step(scheme, U::EPS, line.scale());
+    let probe = scheme::one_sided_probe(&mut line, h);
+    counts.forward += line.evals;
+    probe
+}
+
+/// The probe φ(t) = Σ wᵢ yᵢ(x + t·v), moving one element (v = e_j) or a
+/// group of elements (v = Σ e_j) of one tensor in place.
 struct ArgLine<'a, U: Real, F> {
     work: &'a mut Args<U>,
     forward: &'a F,
     w: &'a [Vec<f64>],
     slot: usize,
-    j: usize,
-    x0: U,
+    /// The moved elements and their original values, restored bit for bit.
+    targets: Vec<(usize, U)>,
     /// wᵢyᵢ of the last `+h` evaluation, reused across elements.
     terms: Vec<f64>,
     evals: usize,
@@ -653,32 +752,45 @@ struct ArgLine<'a, U: Real, F> {
 
 impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
     fn new(work: &'a mut Args<U>, forward: &'a F, w: &'a [Vec<f64>], slot: usize) -> Self {
-        let x0 = work.all()[slot].data().first().copied().unwrap_or_default();
         ArgLine {
             work,
             forward,
             w,
             slot,
-            j: 0,
-            x0,
+            targets: Vec::with_capacity(1),
             terms: Vec::new(),
             evals: 0,
         }
     }
 
     fn select(&mut self, j: usize) {
-        self.j = j;
-        self.x0 = self.work.all()[self.slot].data()[j];
+        self.select_group(&[j]);
+    }
+
+    fn select_group(&mut self, group: &[usize]) {
+        self.targets.clear();
+        let data = self.work.all()[self.slot].data();
+        self.targets.extend(group.iter().map(|&j| (j, data[j])));
     }
 
     /// Evaluates at x0 + t. With `keep`, stores the terms wᵢyᵢ; otherwise
     /// also returns Σ|kept − current| and Σ|kept| over the outputs that
     /// moved.
     fn eval(&mut self, t: f64, keep: bool) -> (Sample, f64, f64) {
-        let x = U::from_f64(self.x0.as_f64() + t);
-        self.work.all_mut()[self.slot].data_mut()[self.j] = x;
+        let data = self.work.all_mut()[self.slot].data_mut();
+        for &(j, x0) in &self.targets {
+            data[j] = U::from_f64(x0.as_f64() + t);
+        }
+        // The step actually applied, after rounding (of the first target).
+        let step = self
+            .targets
+            .first()
+            .map_or(0.0, |&(j, x0)| data[j].as_f64() - x0.as_f64());
         let y = (self.forward)(self.work);
-        self.work.all_mut()[self.slot].data_mut()[self.j] = self.x0;
+        let data = self.work.all_mut()[self.slot].data_mut();
+        for &(j, x0) in &self.targets {
+            data[j] = x0;
+        }
         self.evals += 1;
         let mut value = 0.0;
         let mut magnitude = 0.0;
@@ -710,7 +822,7 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
             value = f64::NAN;
         }
         let sample = Sample {
-            step: x.as_f64() - self.x0.as_f64(),
+            step,
             value,
             magnitude,
         };
@@ -723,7 +835,9 @@ impl<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> Line for ArgLine<'_, U, F> {
         U::EPS
     }
     fn scale(&self) -> f64 {
-        self.x0.as_f64().abs().max(1.0)
+        self.targets
+            .iter()
+            .fold(1.0, |m, &(_, x0)| m.max(x0.as_f64().abs()))
     }
     fn at(&mut self, t: f64) -> Sample {
         self.eval(t, false).0

@@ -68,6 +68,19 @@ pub enum Diagnosis {
         /// The first difference seen.
         detail: String,
     },
+    /// Elements at kinks fit their one-sided derivatives one by one, but
+    /// their sum does not fit the joint move's: one gradient was handed to
+    /// several of them (max-pool ties routed to every maximum).
+    SharedKink {
+        /// Elements in the group.
+        elements: usize,
+        /// Σ analytic over them.
+        analytic_sum: f64,
+        /// Joint one-sided derivatives.
+        left: f64,
+        /// Joint one-sided derivatives.
+        right: f64,
+    },
     /// Some elements sit at a non-differentiable point; listed apart.
     Kinks {
         /// Elements at a kink.
@@ -115,6 +128,18 @@ impl fmt::Display for Diagnosis {
             Diagnosis::BackwardAccumulates { detail } => {
                 write!(f, "backward accumulates: {detail}")
             }
+            Diagnosis::SharedKink {
+                elements,
+                analytic_sum,
+                left,
+                right,
+            } => write!(
+                f,
+                "kinks share one gradient: sum over {elements} is {}, joint one-sided {} / {}",
+                crate::format::num(*analytic_sum),
+                crate::format::num(*left),
+                crate::format::num(*right)
+            ),
             Diagnosis::Kinks { count, outside } => {
                 if *outside == 0 {
                     write!(f, "{count} at a kink (one-sided values fit)")
@@ -196,6 +221,16 @@ pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> 
         .iter()
         .filter(|e| matches!(e.status, ElementStatus::Kink { fits: false, .. }))
         .count();
+    if let Some(j) = &row.joint_kink {
+        if wrong.is_empty() {
+            return Some(Diagnosis::SharedKink {
+                elements: j.elements,
+                analytic_sum: j.analytic_sum,
+                left: j.left,
+                right: j.right,
+            });
+        }
+    }
     if wrong.is_empty() {
         return (kinks > 0).then_some(Diagnosis::Kinks {
             count: kinks,

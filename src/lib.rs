@@ -123,7 +123,7 @@ pub use layer::{
     Args, Dim, GenericLayer, Gradients, Layer, ReferenceForward, Role, Signature, Slot,
 };
 pub use render::{failure_message, markdown, table, Style};
-pub use report::{ElementCheck, ElementStatus, Report, Row, Verdict, Worst};
+pub use report::{ElementCheck, ElementStatus, JointKink, Report, Row, Verdict, Worst};
 pub use scalar::{Real, Scalar};
 pub use scheme::{
     central_difference, one_sided_derivatives, ridders_derivative, Estimate, KinkProbe, Scheme,

@@ -63,11 +63,28 @@ pub struct Row {
     pub max_rel_error: f64,
     /// The row's verdict.
     pub verdict: Verdict,
+    /// Elements at kinks whose analytic values fit one by one but not
+    /// together (e.g. a max-pool tie whose gradient went to every maximum).
+    pub joint_kink: Option<JointKink>,
     /// What kind of bug the numbers point to, if any.
     pub diagnosis: Option<Diagnosis>,
     /// Per-element detail, in row-major order (not serialized).
     #[serde(skip)]
     pub elements: Vec<ElementCheck>,
+}
+
+/// A group of kink elements whose analytic values do not add up to a value
+/// between the one-sided derivatives of moving them together.
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct JointKink {
+    /// Elements in the group (every kink element of the tensor).
+    pub elements: usize,
+    /// Σ analytic over the group.
+    pub analytic_sum: f64,
+    /// One-sided derivative of the joint move from the left.
+    pub left: f64,
+    /// One-sided derivative of the joint move from the right.
+    pub right: f64,
 }
 
 /// The worst element of a row.

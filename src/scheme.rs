@@ -223,6 +223,52 @@ pub struct KinkProbe {
 /// differences (see DEVELOPERS.md, "Kinks"); κ = 10 times the rounding
 /// noise 4ε|φ|/s is the threshold below which a gap is noise.
 pub(crate) fn kink_test(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
+    let s = one_sided(line, h);
+    const KAPPA: f64 = 10.0;
+    if !(s.gap_h.is_finite() && s.gap_quarter.is_finite()) {
+        return None;
+    }
+    if s.gap_h.abs() <= KAPPA * s.noise_h && s.gap_quarter.abs() <= KAPPA * s.noise_quarter {
+        return None;
+    }
+    let r = s.gap_quarter / s.gap_h;
+    if (r - 0.25).abs() <= 0.15 {
+        return None;
+    }
+    Some(KinkProbe {
+        left: s.left,
+        right: s.right,
+        noise: KAPPA * s.noise_quarter,
+        at_point: r.abs() > 0.5,
+    })
+}
+
+/// One-sided derivatives at step h/4 along a line, whether or not it has
+/// a kink there (used for a joint move of several kink elements).
+pub(crate) fn one_sided_probe(line: &mut impl Line, h: f64) -> KinkProbe {
+    let s = one_sided(line, h);
+    KinkProbe {
+        left: s.left,
+        right: s.right,
+        noise: 10.0 * s.noise_quarter,
+        at_point: true,
+    }
+}
+
+/// The five evaluations of the kink test and what they give.
+struct OneSided {
+    /// D₊ − D₋ at step h, and at step h/4.
+    gap_h: f64,
+    gap_quarter: f64,
+    /// Rounding allowance of those gaps (4ε|φ|/s).
+    noise_h: f64,
+    noise_quarter: f64,
+    /// D₋ and D₊ at step h/4.
+    left: f64,
+    right: f64,
+}
+
+fn one_sided(line: &mut impl Line, h: f64) -> OneSided {
     let c = line.at(0.0);
     let p1 = line.at(h);
     let m1 = line.at(-h);
@@ -233,32 +279,21 @@ pub(crate) fn kink_test(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
         .map(|s| s.magnitude.abs())
         .fold(0.0, f64::max);
     let eps_a = 4.0 * line.eps() * mag;
-    let gap = |p: Sample, m: Sample| {
+    let sides = |p: Sample, m: Sample| {
         let right = (p.value - c.value) / p.step;
         let left = (c.value - m.value) / -m.step;
-        (right - left, left, right)
+        (left, right)
     };
-    let (d1, _, _) = gap(p1, m1);
-    let (d4, left, right) = gap(p4, m4);
-    let noise1 = 4.0 * eps_a / h;
-    let noise4 = 4.0 * eps_a / (h / 4.0);
-    const KAPPA: f64 = 10.0;
-    if !(d1.is_finite() && d4.is_finite()) {
-        return None;
-    }
-    if d1.abs() <= KAPPA * noise1 && d4.abs() <= KAPPA * noise4 {
-        return None;
-    }
-    let r = d4 / d1;
-    if (r - 0.25).abs() <= 0.15 {
-        return None;
-    }
-    Some(KinkProbe {
+    let (l1, r1) = sides(p1, m1);
+    let (left, right) = sides(p4, m4);
+    OneSided {
+        gap_h: r1 - l1,
+        gap_quarter: right - left,
+        noise_h: 4.0 * eps_a / h,
+        noise_quarter: 4.0 * eps_a / (h / 4.0),
         left,
         right,
-        noise: KAPPA * noise4,
-        at_point: r.abs() > 0.5,
-    })
+    }
 }
 
 /// A [`Line`] over a plain scalar function in `f64`.

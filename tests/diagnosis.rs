@@ -233,6 +233,8 @@ fn accumulating_backward_is_reported_as_such() {
 /// but not the ones the complex step picks.
 struct Kinky {
     abs_at_zero: f64,
+    /// Route max-pool ties to both maxima (a real bug at ties).
+    ties_to_both: bool,
 }
 
 impl GenericLayer for Kinky {
@@ -270,7 +272,11 @@ impl GenericLayer for Kinky {
         let dp = Tensor::from_fn(p.shape().to_vec(), |ix| {
             let (l, r) = (at(p, &[ix[0], 0]), at(p, &[ix[0], 1]));
             let g = at(&up[1], &[ix[0]]);
-            let winner = if ix[1] == 0 { l >= r } else { r > l };
+            let winner = if ix[1] == 0 {
+                l >= r
+            } else {
+                r > l || (self.ties_to_both && r == l)
+            };
             if winner {
                 g
             } else {
@@ -296,7 +302,13 @@ fn kinks_are_listed_apart_and_do_not_fail() {
     let p = Tensor::new(vec![2, 2], vec![0.5, 0.5, -1.0, 1.0]).unwrap();
     let args = Args::new(vec![x, p], vec![]);
     let r = Audit::new()
-        .run(&Kinky { abs_at_zero: 0.0 }, &args)
+        .run(
+            &Kinky {
+                abs_at_zero: 0.0,
+                ties_to_both: false,
+            },
+            &args,
+        )
         .unwrap();
     assert!(r.passed(), "{r}");
     // relu + |x| at 0: one-sided slopes −1 and 2; the analytic 0 fits.
@@ -320,7 +332,10 @@ fn an_analytic_value_outside_the_one_sided_interval_fails_only_when_asked() {
     let x = Tensor::new(vec![2], vec![0.0, 0.5]).unwrap();
     let p = Tensor::new(vec![1, 2], vec![-1.0, 1.0]).unwrap();
     let args = Args::new(vec![x, p], vec![]);
-    let layer = Kinky { abs_at_zero: 5.0 };
+    let layer = Kinky {
+        abs_at_zero: 5.0,
+        ties_to_both: false,
+    };
     let r = Audit::new().run(&layer, &args).unwrap();
     assert!(r.passed(), "listed apart by default: {r}");
     assert_eq!(
@@ -336,12 +351,56 @@ fn an_analytic_value_outside_the_one_sided_interval_fails_only_when_asked() {
 }
 
 #[test]
+fn max_pool_ties_routed_to_every_maximum_are_caught_jointly() {
+    // Each tied element's analytic value fits its own one-sided interval
+    // [0, g]; moving both together raises the pooled value at rate 1, not 2.
+    let x = Tensor::new(vec![1], vec![0.25]).unwrap();
+    let p = Tensor::new(vec![2, 2], vec![0.5, 0.5, -1.0, -1.0]).unwrap();
+    let args = Args::new(vec![x, p], vec![]);
+    let r = Audit::new()
+        .run(
+            &Kinky {
+                abs_at_zero: 0.0,
+                ties_to_both: true,
+            },
+            &args,
+        )
+        .unwrap();
+    assert!(!r.passed(), "{r}");
+    assert_eq!(r.rows[0].name, "p");
+    assert!(
+        matches!(
+            r.rows[0].diagnosis,
+            Some(Diagnosis::SharedKink { elements: 4, .. })
+        ),
+        "{r}"
+    );
+    // Routed to one maximum, the same ties pass.
+    let r = Audit::new()
+        .run(
+            &Kinky {
+                abs_at_zero: 0.0,
+                ties_to_both: false,
+            },
+            &args,
+        )
+        .unwrap();
+    assert!(r.passed(), "{r}");
+}
+
+#[test]
 fn correct_kinky_layers_never_get_a_failing_diagnosis() {
     for seed in 0..300 {
         let args = grid_args(seed, 5, 3);
         let r = Audit::new()
             .seed(seed)
-            .run(&Kinky { abs_at_zero: 0.0 }, &args)
+            .run(
+                &Kinky {
+                    abs_at_zero: 0.0,
+                    ties_to_both: false,
+                },
+                &args,
+            )
             .unwrap();
         assert!(r.passed(), "seed {seed}\n{r}");
         for row in &r.rows {
@@ -401,7 +460,7 @@ proptest::proptest! {
         let x = Tensor::new(vec![xs.len()], xs.iter().map(|&v| f64::from(v) * 0.5).collect()).unwrap();
         let pairs = ps.len() / 2;
         let p = Tensor::new(vec![pairs, 2], ps[..2 * pairs].iter().map(|&v| f64::from(v) * 0.5).collect()).unwrap();
-        let r = Audit::new().seed(seed).run(&Kinky { abs_at_zero: 0.0 }, &Args::new(vec![x, p], vec![])).unwrap();
+        let r = Audit::new().seed(seed).run(&Kinky { abs_at_zero: 0.0, ties_to_both: false }, &Args::new(vec![x, p], vec![])).unwrap();
         proptest::prop_assert!(r.passed(), "{}", r);
         for row in &r.rows {
             proptest::prop_assert!(row.diagnosis.as_ref().is_none_or(|d| d.is_informational()), "{}", r);
