@@ -274,10 +274,13 @@ impl Audit {
             let diff = (analytic - est.value).abs();
             let mut status = if !(analytic.is_finite() && est.value.is_finite()) {
                 ElementStatus::NotFinite
-            } else if Tolerance::accepts(diff, bound) {
-                ElementStatus::Agrees
-            } else {
+            } else if !Tolerance::accepts(diff, bound) {
                 ElementStatus::Disagrees
+            } else if !est.conclusive {
+                // Within a bound that is too wide to mean anything.
+                ElementStatus::Inconclusive
+            } else {
+                ElementStatus::Agrees
             };
             if status == ElementStatus::Disagrees {
                 if let Some(probe) = kink(Probe::One(j)) {
@@ -662,6 +665,7 @@ fn complex_step_all(
             scale,
             forward_scale: touched / x_scale,
             evals: 1,
+            conclusive: true,
         });
     }
     out

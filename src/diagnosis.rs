@@ -81,6 +81,12 @@ pub enum Diagnosis {
         /// Joint one-sided derivatives.
         right: f64,
     },
+    /// The numeric reference could not decide: its truncation error is too
+    /// wide at these elements (φ changes faster than the stencil's scale).
+    Inconclusive {
+        /// Elements concerned.
+        count: usize,
+    },
     /// Some elements sit at a non-differentiable point; listed apart.
     Kinks {
         /// Elements at a kink.
@@ -128,6 +134,10 @@ impl fmt::Display for Diagnosis {
             Diagnosis::BackwardAccumulates { detail } => {
                 write!(f, "backward accumulates: {detail}")
             }
+            Diagnosis::Inconclusive { count } => write!(
+                f,
+                "reference inconclusive at {count} (use a GenericLayer for the complex step)"
+            ),
             Diagnosis::SharedKink {
                 elements,
                 analytic_sum,
@@ -236,6 +246,12 @@ pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> 
             count: kinks,
             outside,
         });
+    }
+    if wrong
+        .iter()
+        .all(|&j| el[j].status == ElementStatus::Inconclusive)
+    {
+        return Some(Diagnosis::Inconclusive { count: wrong.len() });
     }
     // Elements at a kink say nothing about the smooth part's bug.
     let smooth: Vec<ElementCheck> = el.iter().filter(|e| !e.status.is_kink()).cloned().collect();

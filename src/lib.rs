@@ -127,6 +127,7 @@ pub use report::{ElementCheck, ElementStatus, JointKink, Report, Row, Verdict, W
 pub use scalar::{Real, Scalar};
 pub use scheme::{
     central_difference, one_sided_derivatives, ridders_derivative, Estimate, KinkProbe, Scheme,
+    INCONCLUSIVE,
 };
 pub use tensor::{Index, Tensor};
 pub use terminal::{stdout_style, terminal_width, write_table, ColorChoice};

@@ -163,6 +163,9 @@ pub enum ElementStatus {
     Disagrees,
     /// Analytic or numeric value is NaN or infinite.
     NotFinite,
+    /// Within the bound, but the reference's truncation error is too large
+    /// to tell a right value from a wrong one (counts as a failure).
+    Inconclusive,
     /// At a non-differentiable point: the one-sided derivatives differ.
     Kink {
         /// One-sided derivatives there.
@@ -179,9 +182,12 @@ impl ElementStatus {
         matches!(self, ElementStatus::Kink { .. })
     }
 
-    /// `true` for `Disagrees` and `NotFinite`.
+    /// `true` for `Disagrees`, `NotFinite` and `Inconclusive`.
     pub fn is_failure(self) -> bool {
-        matches!(self, ElementStatus::Disagrees | ElementStatus::NotFinite)
+        matches!(
+            self,
+            ElementStatus::Disagrees | ElementStatus::NotFinite | ElementStatus::Inconclusive
+        )
     }
 }
 

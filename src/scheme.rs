@@ -80,6 +80,18 @@ pub struct Estimate {
     pub forward_scale: f64,
     /// Function evaluations spent.
     pub evals: usize,
+    /// `false` when the scheme's truncation error (not its rounding)
+    /// exceeds [`INCONCLUSIVE`] of the derivative's size: the reference
+    /// cannot tell a right value from a wrong one there.
+    pub conclusive: bool,
+}
+
+/// Truncation error, relative to max(|derivative|, Σ|terms|), above which a
+/// reference is inconclusive.
+pub const INCONCLUSIVE: f64 = 1e-2;
+
+fn conclusive(truncation: f64, value: f64, scale: f64) -> bool {
+    !(truncation > INCONCLUSIVE * value.abs().max(scale))
 }
 
 /// One evaluation of the probe scalar.
@@ -134,6 +146,7 @@ pub(crate) fn central(line: &mut impl Line) -> Estimate {
         scale: p1.scale,
         forward_scale: p1.touched / line.scale(),
         evals: 4,
+        conclusive: truncation <= rounding || conclusive(truncation, p1.derivative, p1.scale),
     }
 }
 
@@ -147,8 +160,26 @@ const SAFE: f64 = 2.0;
 const RIDDERS_INFLATE: f64 = 10.0;
 
 /// Ridders' method from initial step `h0 = 0.1·max(|x|, 1)`.
+/// Ridders' method from h0 = 0.1·max(|x|, 1); where the tableau stays
+/// inconclusive (φ changes on a scale shorter than the stencil), it starts
+/// again from h0/8 and h0/64 and keeps the estimate with the smallest error.
 pub(crate) fn ridders(line: &mut impl Line) -> Estimate {
-    ridders_from(line, 0.1 * line.scale())
+    let mut h0 = 0.1 * line.scale();
+    let mut best = ridders_from(line, h0);
+    let mut evals = best.evals;
+    for _ in 0..2 {
+        if best.conclusive {
+            break;
+        }
+        h0 /= 8.0;
+        let next = ridders_from(line, h0);
+        evals += next.evals;
+        if next.error < best.error || !best.error.is_finite() {
+            best = next;
+        }
+    }
+    best.evals = evals;
+    best
 }
 
 pub(crate) fn ridders_from(line: &mut impl Line, h0: f64) -> Estimate {
@@ -190,12 +221,14 @@ pub(crate) fn ridders_from(line: &mut impl Line, h0: f64) -> Estimate {
     // (e.g. a linear φ): never claim less than the rounding of the column
     // the answer came from, nor than 100ε of the terms.
     let floor = (4.0 * ans_noise).max(100.0 * line.eps() * (ans.abs() + first.scale));
+    let truncation = RIDDERS_INFLATE * err;
     Estimate {
         value: ans,
-        error: (RIDDERS_INFLATE * err).max(floor),
+        error: truncation.max(floor),
         scale: first.scale,
         forward_scale: first.touched / line.scale(),
         evals,
+        conclusive: truncation <= floor || conclusive(truncation, ans, first.scale),
     }
 }
 
