@@ -86,6 +86,10 @@ mod complex_step;
 mod diagnosis;
 mod error;
 mod format;
+/// Correct reference layers with hand-written backward passes, and planted
+/// bugs in them (feature `gallery`).
+#[cfg(feature = "gallery")]
+pub mod gallery;
 mod layer;
 mod render;
 mod report;
