@@ -1,15 +1,65 @@
-//! Cost of the numeric references (placeholder until the layer benches land).
-use criterion::{criterion_group, criterion_main, Criterion};
+//! What an audit costs: wall time of whole audits of a dense layer in each
+//! scheme and precision, and of the scalar schemes alone.
+//!
+//! Run: `cargo bench --bench audit` (figures in README.md, "Performance").
+
+use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion};
+use plumbline::{Audit, Scheme};
+use std::hint::black_box;
+use std::time::Duration;
+
+#[path = "../tests/common/mod.rs"]
+mod common;
+use common::{dense_args, Dense, DenseBug};
+
+fn audits(c: &mut Criterion) {
+    let mut g = c.benchmark_group("audit_dense");
+    // batch 8, 16 inputs, 8 outputs: 128 + 128 + 8 = 264 checked elements.
+    let (batch, inp, out) = (8, 16, 8);
+    for scheme in [Scheme::ComplexStep, Scheme::Ridders, Scheme::Central] {
+        let args = dense_args::<f64>(batch, inp, out, 1);
+        let layer = Dense::<f64>::new(DenseBug::None);
+        let audit = Audit::new().scheme(scheme);
+        g.bench_with_input(BenchmarkId::new("f64", scheme), &args, |b, args| {
+            b.iter(|| black_box(audit.run(&layer, args).unwrap()))
+        });
+        let args = dense_args::<f32>(batch, inp, out, 1);
+        let layer = Dense::<f32>::new(DenseBug::None);
+        g.bench_with_input(BenchmarkId::new("f32", scheme), &args, |b, args| {
+            b.iter(|| black_box(audit.run(&layer, args).unwrap()))
+        });
+    }
+    g.finish();
+}
 
 fn schemes(c: &mut Criterion) {
     let f = |x: f64| x.exp() / (x.sin().powi(3) + x.cos().powi(3)).sqrt();
-    c.bench_function("central_difference", |b| {
-        b.iter(|| plumbline::central_difference(f, std::hint::black_box(1.5)))
+    c.bench_function("scalar/central_difference", |b| {
+        b.iter(|| plumbline::central_difference(f, black_box(1.5)))
     });
-    c.bench_function("ridders_derivative", |b| {
-        b.iter(|| plumbline::ridders_derivative(f, std::hint::black_box(1.5), 0.1))
+    c.bench_function("scalar/ridders_derivative", |b| {
+        b.iter(|| plumbline::ridders_derivative(f, black_box(1.5), 0.1))
+    });
+    c.bench_function("scalar/complex_step_derivative", |b| {
+        b.iter(|| {
+            plumbline::complex_step_derivative(
+                |z| {
+                    use num_traits::Float;
+                    z.exp() / (z.sin().powi(3) + z.cos().powi(3)).sqrt()
+                },
+                black_box(1.5),
+                1e-20,
+            )
+        })
     });
 }
 
-criterion_group!(benches, schemes);
+criterion_group! {
+    name = benches;
+    config = Criterion::default()
+        .sample_size(10)
+        .warm_up_time(Duration::from_millis(300))
+        .measurement_time(Duration::from_secs(1));
+    targets = audits, schemes
+}
 criterion_main!(benches);

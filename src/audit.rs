@@ -308,6 +308,11 @@ impl Audit {
         let (mut max_abs, mut max_rel) = (0.0_f64, 0.0_f64);
         let mut worst: Option<(usize, f64)> = None;
         for (j, e) in elements.iter().enumerate() {
+            // Kinks are listed apart: they count in the row's figures only
+            // when they fail it.
+            if matches!(e.status, ElementStatus::Kink { .. }) && !fails(e) {
+                continue;
+            }
             let diff = (e.analytic - e.numeric).abs();
             let rel = relative_error(e.analytic, e.numeric);
             // NaN compares as the worst of all.
@@ -558,15 +563,19 @@ fn complex_step_all(
         work.all_mut()[slot].data_mut()[j].im = 0.0;
         counts.forward += 1;
         let shapes_ok = y.len() == w.len() && y.iter().zip(w).all(|(t, w)| t.len() == w.len());
-        let (mut value, mut scale) = (0.0_f64, 0.0_f64);
+        let (mut value, mut scale, mut touched) = (0.0_f64, 0.0_f64, 0.0_f64);
         for (yt, wt) in y.iter().zip(w) {
             for (yi, wi) in yt.data().iter().zip(wt) {
                 let term = wi * (yi.im / h);
                 // A non-finite value poisons the derivative too.
                 value += if yi.re.is_finite() { term } else { f64::NAN };
                 scale += term.abs();
+                if yi.im != 0.0 {
+                    touched += (wi * yi.re).abs();
+                }
             }
         }
+        let x_scale = work.all()[slot].data()[j].re.abs().max(1.0);
         if !shapes_ok {
             value = f64::NAN;
         }
@@ -574,6 +583,7 @@ fn complex_step_all(
             value,
             error: 4.0 * f64::EPSILON * scale,
             scale,
+            forward_scale: touched / x_scale,
             evals: 1,
         });
     }
@@ -661,9 +671,10 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
         self.x0 = self.work.all()[self.slot].data()[j];
     }
 
-    /// Evaluates at x0 + t; `keep` stores the terms, otherwise returns
-    /// Σ|kept − current| alongside.
-    fn eval(&mut self, t: f64, keep: bool) -> (Sample, f64) {
+    /// Evaluates at x0 + t. With `keep`, stores the terms wᵢyᵢ; otherwise
+    /// also returns Σ|kept − current| and Σ|kept| over the outputs that
+    /// moved.
+    fn eval(&mut self, t: f64, keep: bool) -> (Sample, f64, f64) {
         let x = U::from_f64(self.x0.as_f64() + t);
         self.work.all_mut()[self.slot].data_mut()[self.j] = x;
         let y = (self.forward)(self.work);
@@ -672,6 +683,7 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
         let mut value = 0.0;
         let mut magnitude = 0.0;
         let mut spread = 0.0;
+        let mut touched = 0.0;
         if keep {
             self.terms.clear();
         }
@@ -685,8 +697,11 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
                 magnitude += term.abs();
                 if keep {
                     self.terms.push(term);
-                } else if let Some(p) = self.terms.get(k) {
-                    spread += (p - term).abs();
+                } else if let Some(&p) = self.terms.get(k) {
+                    if p != term {
+                        spread += (p - term).abs();
+                        touched += p.abs();
+                    }
                 }
                 k += 1;
             }
@@ -699,7 +714,7 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
             value,
             magnitude,
         };
-        (sample, spread)
+        (sample, spread, touched)
     }
 }
 
@@ -714,12 +729,13 @@ impl<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> Line for ArgLine<'_, U, F> {
         self.eval(t, false).0
     }
     fn pair(&mut self, h: f64) -> Pair {
-        let (p, _) = self.eval(h, true);
-        let (m, spread) = self.eval(-h, false);
+        let (p, _, _) = self.eval(h, true);
+        let (m, spread, touched) = self.eval(-h, false);
         let width = p.step - m.step;
         Pair {
             derivative: (p.value - m.value) / width,
             scale: spread / width,
+            touched,
             magnitude: p.magnitude.max(m.magnitude),
             width,
         }

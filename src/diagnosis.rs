@@ -202,14 +202,16 @@ pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> 
             outside,
         });
     }
+    // Elements at a kink say nothing about the smooth part's bug.
+    let smooth: Vec<ElementCheck> = el.iter().filter(|e| !e.status.is_kink()).cloned().collect();
     let significant = |e: &ElementCheck| e.numeric.abs() > e.bound;
-    if !el.iter().any(significant) {
+    if !smooth.iter().any(significant) {
         return Some(Diagnosis::Spurious);
     }
-    if el.iter().all(|e| e.analytic.abs() <= e.bound) {
+    if smooth.iter().all(|e| e.analytic.abs() <= e.bound) {
         return Some(Diagnosis::AllZero);
     }
-    if let Some(k) = common_factor(el) {
+    if let Some(k) = common_factor(&smooth) {
         if (k + 1.0).abs() < FACTOR_MATCH {
             return Some(Diagnosis::SignFlipped);
         }
@@ -296,6 +298,9 @@ fn transposed_match(
                 continue;
             }
             let ok = el.iter().enumerate().all(|(j, e)| {
+                if e.status.is_kink() {
+                    return true;
+                }
                 let mut ix = Index::from_flat(shape, j).0;
                 ix.swap(p, q);
                 grad.get(&ix)

@@ -81,27 +81,48 @@
 //! * `gallery`: correct reference layers and planted bugs, as models.
 #![deny(missing_docs)]
 
+/// The README's examples, compiled and run as doctests.
+#[cfg(doctest)]
+#[doc = include_str!("../README.md")]
+pub struct ReadmeDoctests;
+
 mod audit;
 mod complex_step;
 mod diagnosis;
+mod env;
 mod error;
 mod format;
 /// Correct reference layers with hand-written backward passes, and planted
 /// bugs in them (feature `gallery`).
 #[cfg(feature = "gallery")]
 pub mod gallery;
+mod harness;
 mod layer;
+#[cfg(feature = "ndarray")]
+mod ndarray_adapter;
 mod render;
 mod report;
 mod scalar;
 mod scheme;
+#[cfg(feature = "proptest")]
+pub mod strategy;
 mod tensor;
+mod terminal;
 mod tolerance;
 
 pub use audit::{Audit, Settings, COMPLEX_STEP, DEFAULT_SEED};
 pub use complex_step::{complex_step_derivative, ComplexStep};
 pub use diagnosis::Diagnosis;
+pub use env::{
+    Environment, PrintFormat, COLOR_VAR, FORMAT_VAR, KINKS_FAIL_VAR, MARGIN_FACTOR_VAR, MARGIN_VAR,
+    REPORT_DIR_VAR, SCHEME_VAR, SEED_VAR,
+};
 pub use error::Error;
+#[doc(hidden)]
+pub use harness::__assert_backward;
+pub use harness::CaseOutcome;
+#[cfg(feature = "proptest")]
+pub use harness::{check_layer, check_layer_with};
 pub use layer::{
     Args, Dim, GenericLayer, Gradients, Layer, ReferenceForward, Role, Signature, Slot,
 };
@@ -112,4 +133,5 @@ pub use scheme::{
     central_difference, one_sided_derivatives, ridders_derivative, Estimate, KinkProbe, Scheme,
 };
 pub use tensor::{Index, Tensor};
+pub use terminal::{stdout_style, terminal_width, write_table, ColorChoice};
 pub use tolerance::{Tolerance, DEFAULT_MARGIN, ROUNDING_ULPS};

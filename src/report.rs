@@ -157,6 +157,11 @@ pub enum ElementStatus {
 }
 
 impl ElementStatus {
+    /// `true` for a kink (the element is listed apart).
+    pub fn is_kink(self) -> bool {
+        matches!(self, ElementStatus::Kink { .. })
+    }
+
     /// `true` for `Disagrees` and `NotFinite`.
     pub fn is_failure(self) -> bool {
         matches!(self, ElementStatus::Disagrees | ElementStatus::NotFinite)

@@ -73,6 +73,11 @@ pub struct Estimate {
     /// Σ|terms| of the derivative: for a probe φ = Σ wᵢyᵢ, Σ|wᵢ ∂yᵢ/∂x|.
     /// Sets the rounding floor of a backward that sums those terms.
     pub scale: f64,
+    /// Σ|wᵢyᵢ| over the outputs this coordinate moves, divided by
+    /// max(|x|, 1): the size of the forward quantities a backward computes
+    /// this element from. It keeps rounding in a correct backward (e.g.
+    /// `1 − tanh²` near saturation) from reading as a bug.
+    pub forward_scale: f64,
     /// Function evaluations spent.
     pub evals: usize,
 }
@@ -94,6 +99,8 @@ pub(crate) struct Pair {
     pub derivative: f64,
     /// Σ|terms| of the difference quotient.
     pub scale: f64,
+    /// Σ|wᵢyᵢ| over the outputs that moved (at the `+h` sample).
+    pub touched: f64,
     /// max magnitude of the two samples.
     pub magnitude: f64,
     /// the full width t₊ − t₋ actually used.
@@ -125,6 +132,7 @@ pub(crate) fn central(line: &mut impl Line) -> Estimate {
         value: p1.derivative,
         error: truncation + rounding,
         scale: p1.scale,
+        forward_scale: p1.touched / line.scale(),
         evals: 4,
     }
 }
@@ -148,18 +156,19 @@ pub(crate) fn ridders_from(line: &mut impl Line, h0: f64) -> Estimate {
     let mut hh = h0;
     let first = line.pair(hh);
     a[0][0] = first.derivative;
-    let mut magnitude = first.magnitude;
-    let mut width = first.width;
+    // Rounding of each column: ε|φ| over that column's step width.
+    let mut noise = [0.0_f64; NTAB];
+    noise[0] = line.eps() * first.magnitude / first.width;
     let mut evals = 2;
     let mut err = f64::INFINITY;
     let mut ans = a[0][0];
+    let mut ans_noise = noise[0];
     for i in 1..NTAB {
         hh /= CON;
         let p = line.pair(hh);
         evals += 2;
-        magnitude = magnitude.max(p.magnitude);
-        width = p.width;
         a[0][i] = p.derivative;
+        noise[i] = line.eps() * p.magnitude / p.width;
         let mut fac = CON * CON;
         for j in 1..=i {
             a[j][i] = (a[j - 1][i] * fac - a[j - 1][i - 1]) / (fac - 1.0);
@@ -170,22 +179,22 @@ pub(crate) fn ridders_from(line: &mut impl Line, h0: f64) -> Estimate {
             if errt <= err {
                 err = errt;
                 ans = a[j][i];
+                ans_noise = noise[i];
             }
         }
         if (a[i][i] - a[i - 1][i - 1]).abs() >= SAFE * err {
             break;
         }
     }
-    if !err.is_finite() {
-        // Every tableau entry was non-finite: report that honestly.
-        err = f64::INFINITY;
-    }
-    let rounding = line.eps() * (ans.abs() + first.scale);
-    let _ = (magnitude, width);
+    // The tableau's own error can be lucky where entries agree by chance
+    // (e.g. a linear φ): never claim less than the rounding of the column
+    // the answer came from, nor than 100ε of the terms.
+    let floor = (4.0 * ans_noise).max(100.0 * line.eps() * (ans.abs() + first.scale));
     Estimate {
         value: ans,
-        error: (RIDDERS_INFLATE * err).max(100.0 * rounding),
+        error: (RIDDERS_INFLATE * err).max(floor),
         scale: first.scale,
+        forward_scale: first.touched / line.scale(),
         evals,
     }
 }
@@ -282,6 +291,7 @@ impl<F: FnMut(f64) -> f64> Line for ScalarLine<F> {
         Pair {
             derivative,
             scale: derivative.abs(),
+            touched: p.magnitude,
             magnitude: p.magnitude.max(m.magnitude),
             width,
         }

@@ -3,7 +3,8 @@
 //! An element disagrees only when `|analytic − numeric|` exceeds
 //!
 //! ```text
-//! bound = margin × ( reference error  +  ROUNDING_ULPS · ε_layer · (Σ|terms| + |numeric|) )
+//! bound = margin × ( reference error
+//!                    + ROUNDING_ULPS · ε_layer · (Σ|terms| + |numeric| + forward scale) )
 //! ```
 //!
 //! * *reference error*: the scheme's own estimate ([`Estimate::error`]):
@@ -13,6 +14,10 @@
 //!   precision (`ε_layer` is `f32::EPSILON` or `f64::EPSILON`), scaled by
 //!   `Σ|terms|` = Σᵢ|wᵢ ∂yᵢ/∂x| — the magnitudes a backward sums to produce
 //!   this element, so cancellation in that sum widens the bound where it must;
+//!   the *forward scale* Σ|wᵢyᵢ|/max(|x|, 1) over the outputs this element
+//!   moves covers rounding in quantities the backward derives from forward
+//!   values (`1 − tanh²` at saturation has absolute error ~ε, however small
+//!   the derivative);
 //! * `margin` (default [`DEFAULT_MARGIN`]) is the one knob.
 //!
 //! Users may instead set approx-style `epsilon` (absolute) and
@@ -62,7 +67,9 @@ impl Tolerance {
             let rel = self.max_relative.unwrap_or(0.0) * analytic.abs().max(estimate.value.abs());
             return abs.max(rel);
         }
-        let floor = ROUNDING_ULPS * layer_eps * (estimate.scale + estimate.value.abs());
+        let floor = ROUNDING_ULPS
+            * layer_eps
+            * (estimate.scale + estimate.value.abs() + estimate.forward_scale);
         self.margin * (estimate.error + floor)
     }
 
@@ -75,7 +82,7 @@ impl Tolerance {
     pub fn describe(&self) -> String {
         match (self.epsilon, self.max_relative) {
             (None, None) => format!(
-                "|a-n| <= {} x (reference error + {} ulp x sum|terms|)",
+                "|a-n| <= {} x (reference error + {} ulp x magnitudes)",
                 self.margin, ROUNDING_ULPS
             ),
             (e, r) => format!(

@@ -1,0 +1,421 @@
+//! The assertion macro (every form), the environment settings and their
+//! precedence, and terminal output. Nothing here reads or writes the
+//! process environment except through `assert_backward!` itself, whose
+//! expectations follow whatever `PLUMBLINE_*` the run was started with.
+
+mod hive;
+
+use hive::{hive_args, HiveBug, HiveScore, CORRECT};
+use plumbline::{
+    assert_backward, terminal_width, write_table, Audit, ColorChoice, Environment, Error,
+    PrintFormat, Report, Scheme, Style,
+};
+
+fn lookup(pairs: &[(&str, &str)]) -> impl Fn(&str) -> Option<String> {
+    let pairs: Vec<(String, String)> = pairs
+        .iter()
+        .map(|(k, v)| (k.to_string(), v.to_string()))
+        .collect();
+    move |name| {
+        pairs
+            .iter()
+            .find(|(k, _)| k == name)
+            .map(|(_, v)| v.clone())
+    }
+}
+
+fn process_env() -> Environment {
+    Environment::from_env().expect("the test run's PLUMBLINE_* variables are valid")
+}
+
+// ---- the macro -----------------------------------------------------------
+
+#[test]
+fn bare_form_returns_the_report() {
+    let report = assert_backward!(CORRECT, &hive_args(3, 4));
+    assert!(report.passed());
+    assert_eq!(report.layer, "HiveScore");
+    assert_eq!(report.rows.len(), 3);
+    assert_eq!(
+        report.seed,
+        process_env().seed.unwrap_or(plumbline::DEFAULT_SEED)
+    );
+    // Trailing comma accepted.
+    let again = assert_backward!(CORRECT, &hive_args(3, 4),);
+    assert_eq!(again, report);
+}
+
+#[test]
+fn key_value_forms_map_onto_the_builder() {
+    let env = process_env();
+    let args = hive_args(2, 3);
+    let r = assert_backward!(CORRECT, &args, seed = 3);
+    assert_eq!(r.seed, env.seed.unwrap_or(3));
+
+    let r = assert_backward!(CORRECT, &args, scheme = Scheme::Ridders, margin = 8.0,);
+    assert!(r.rows.iter().all(|row| row.scheme == Scheme::Ridders));
+    assert_eq!(r.tolerance.margin, 8.0 * env.margin_factor.unwrap_or(1.0));
+
+    let r = assert_backward!(CORRECT, &args, epsilon = 1e-9, max_relative = 1e-7);
+    assert_eq!(
+        r.tolerance.epsilon,
+        Some(1e-9 * env.margin_factor.unwrap_or(1.0))
+    );
+
+    let r = assert_backward!(CORRECT, &args, kinks_fail = true, name = "hive score");
+    assert!(r.kinks_fail);
+    assert_eq!(r.layer, "hive score");
+
+    // The layer may be any expression.
+    let layer = HiveScore { bug: HiveBug::None };
+    assert_backward!(layer, &args, scheme = Scheme::Central);
+}
+
+#[test]
+#[should_panic(expected = "disagrees with its forward in tensor: w")]
+fn a_wrong_gradient_panics_naming_the_tensor() {
+    assert_backward!(
+        HiveScore {
+            bug: HiveBug::WeightSignFlip
+        },
+        &hive_args(3, 2)
+    );
+}
+
+#[test]
+#[should_panic(expected = "(set PLUMBLINE_SEED=")]
+fn a_failure_names_the_replay_variable() {
+    assert_backward!(
+        HiveScore {
+            bug: HiveBug::BiasFromFirstHive
+        },
+        &hive_args(3, 2),
+        seed = 11
+    );
+}
+
+#[test]
+#[should_panic(expected = "assert_backward!: parameter `b` has shape [5]")]
+fn misuse_panics_with_the_error_message() {
+    let (inputs, mut params) = hive_args(2, 2).into_parts();
+    params[1] = plumbline::Tensor::full(vec![5], 0.0);
+    assert_backward!(CORRECT, &plumbline::Args::new(inputs, params));
+}
+
+#[test]
+fn the_failure_message_is_plain_and_says_what_to_change() {
+    let caught = std::panic::catch_unwind(|| {
+        assert_backward!(
+            HiveScore {
+                bug: HiveBug::WeightSignFlip
+            },
+            &hive_args(2, 2),
+            margin = 6.0
+        )
+    });
+    let payload = caught.expect_err("a flipped sign must fail");
+    let msg = payload
+        .downcast_ref::<String>()
+        .cloned()
+        .unwrap_or_default();
+    assert!(msg.contains("sign flipped"), "{msg}");
+    assert!(
+        msg.contains("#  tensor"),
+        "the table is in the message: {msg}"
+    );
+    assert!(
+        msg.contains("set in code, so PLUMBLINE_MARGIN does not change it"),
+        "{msg}"
+    );
+    assert!(msg.contains("PLUMBLINE_MARGIN_FACTOR"), "{msg}");
+    assert!(
+        !msg.contains('\x1b'),
+        "panic messages carry no colour: {msg}"
+    );
+}
+
+// ---- environment settings ------------------------------------------------
+
+#[test]
+fn every_variable_parses() {
+    let env = Environment::from_lookup(lookup(&[
+        ("PLUMBLINE_SEED", "12345"),
+        ("PLUMBLINE_MARGIN", "6"),
+        ("PLUMBLINE_MARGIN_FACTOR", "0.5"),
+        ("PLUMBLINE_SCHEME", "ridders"),
+        ("PLUMBLINE_KINKS_FAIL", "yes"),
+        ("PLUMBLINE_REPORT_DIR", "target/audits"),
+        ("PLUMBLINE_FORMAT", "markdown"),
+        ("PLUMBLINE_COLOR", "never"),
+    ]))
+    .unwrap();
+    assert_eq!(
+        env,
+        Environment {
+            seed: Some(12345),
+            margin: Some(6.0),
+            margin_factor: Some(0.5),
+            scheme: Some(Scheme::Ridders),
+            kinks_fail: Some(true),
+            report_dir: Some("target/audits".into()),
+            format: PrintFormat::Markdown,
+            color: ColorChoice::Never,
+        }
+    );
+    // Unset and empty are the same: nothing set.
+    assert_eq!(
+        Environment::from_lookup(lookup(&[("PLUMBLINE_SEED", "")])).unwrap(),
+        Environment::default()
+    );
+}
+
+#[test]
+fn invalid_values_name_the_variable() {
+    for (var, value) in [
+        ("PLUMBLINE_SEED", "-3"),
+        ("PLUMBLINE_SEED", "0xZZ"),
+        ("PLUMBLINE_MARGIN", "0"),
+        ("PLUMBLINE_MARGIN", "NaN"),
+        ("PLUMBLINE_MARGIN_FACTOR", "inf"),
+        ("PLUMBLINE_SCHEME", "forward"),
+        ("PLUMBLINE_KINKS_FAIL", "maybe"),
+        ("PLUMBLINE_FORMAT", "xml"),
+        ("PLUMBLINE_COLOR", "sometimes"),
+    ] {
+        let err = Environment::from_lookup(lookup(&[(var, value)])).unwrap_err();
+        match &err {
+            Error::Setting {
+                setting, value: v, ..
+            } => {
+                assert_eq!(setting, var);
+                assert_eq!(v, value);
+            }
+            other => panic!("{var}: {other:?}"),
+        }
+        assert!(err
+            .to_string()
+            .starts_with(&format!("setting `{var}` = `{value}`")));
+    }
+}
+
+#[test]
+fn code_beats_environment_beats_defaults_except_seed_and_factor() {
+    let env = Environment::from_lookup(lookup(&[
+        ("PLUMBLINE_MARGIN", "6"),
+        ("PLUMBLINE_SCHEME", "central"),
+        ("PLUMBLINE_KINKS_FAIL", "1"),
+    ]))
+    .unwrap();
+    // Environment over defaults.
+    let s = env.audit(|a| a).settings().clone();
+    assert_eq!(
+        (s.tolerance.margin, s.scheme, s.kinks_fail),
+        (6.0, Some(Scheme::Central), true)
+    );
+    assert_eq!(s.seed, plumbline::DEFAULT_SEED);
+    // Code over environment.
+    let s = env
+        .audit(|a| {
+            a.margin(9.0)
+                .scheme(Scheme::Ridders)
+                .kinks_fail(false)
+                .seed(4)
+        })
+        .settings()
+        .clone();
+    assert_eq!(
+        (s.tolerance.margin, s.scheme, s.kinks_fail, s.seed),
+        (9.0, Some(Scheme::Ridders), false, 4)
+    );
+
+    // The replay seed and the factor win over code.
+    let env = Environment::from_lookup(lookup(&[
+        ("PLUMBLINE_SEED", "0xBEE"),
+        ("PLUMBLINE_MARGIN_FACTOR", "2"),
+    ]))
+    .unwrap();
+    let s = env
+        .audit(|a| a.seed(4).margin(3.0).epsilon(1e-6))
+        .settings()
+        .clone();
+    assert_eq!(s.seed, 0xBEE);
+    assert_eq!(s.tolerance.margin, 6.0);
+    assert_eq!(s.tolerance.epsilon, Some(2e-6));
+}
+
+#[test]
+fn a_tighter_factor_changes_the_outcome() {
+    // An f32 copy of the correct layer's gradient passes at factor 1 but
+    // not when every bound is scaled down a millionfold: the factor reaches
+    // the audit.
+    let env = Environment::from_lookup(lookup(&[("PLUMBLINE_MARGIN_FACTOR", "1e-12")])).unwrap();
+    let r = env
+        .audit(|a| a.epsilon(1e-9))
+        .run(&CORRECT, &hive_args(2, 2))
+        .unwrap();
+    let eps = r.tolerance.epsilon.unwrap();
+    assert!((eps - 1e-21).abs() < 1e-35, "{eps}");
+    let loose = Audit::new()
+        .epsilon(1e-9)
+        .run(&CORRECT, &hive_args(2, 2))
+        .unwrap();
+    assert!(loose.passed(), "{loose}");
+    // Complex-step references agree to ~1e-16, so 1e-21 is beyond reach
+    // for at least one element.
+    assert!(!r.passed(), "{r}");
+}
+
+// ---- terminal ------------------------------------------------------------
+
+#[test]
+fn colour_decision_follows_the_conventions() {
+    let auto = ColorChoice::Auto;
+    assert!(auto.enabled(true, lookup(&[("TERM", "xterm-256color")])));
+    assert!(!auto.enabled(false, lookup(&[("TERM", "xterm-256color")])));
+    assert!(!auto.enabled(true, lookup(&[("NO_COLOR", "1")])));
+    // An empty NO_COLOR does not count.
+    assert!(auto.enabled(true, lookup(&[("NO_COLOR", "")])));
+    assert!(!auto.enabled(true, lookup(&[("TERM", "dumb")])));
+    assert!(auto.enabled(false, lookup(&[("CLICOLOR_FORCE", "1")])));
+    assert!(!auto.enabled(false, lookup(&[("CLICOLOR_FORCE", "0")])));
+    assert!(!auto.enabled(true, lookup(&[("NO_COLOR", "1"), ("CLICOLOR_FORCE", "1")])));
+    assert!(ColorChoice::Always.enabled(false, lookup(&[("NO_COLOR", "1")])));
+    assert!(!ColorChoice::Never.enabled(true, lookup(&[])));
+}
+
+#[test]
+fn width_comes_from_columns() {
+    assert_eq!(terminal_width(lookup(&[("COLUMNS", "88")])), Some(88));
+    assert_eq!(terminal_width(lookup(&[("COLUMNS", "0")])), None);
+    assert_eq!(terminal_width(lookup(&[])), None);
+}
+
+fn failing_report() -> Report {
+    let mut r = Audit::new()
+        .seed(7)
+        .name("apiary.north_field.hive_health_score")
+        .run(
+            &HiveScore {
+                bug: HiveBug::WeightSignFlip,
+            },
+            &hive_args(2, 2),
+        )
+        .unwrap();
+    // Long names, as nested modules produce them.
+    for row in &mut r.rows {
+        row.name = format!("apiary.north_field.hive_score.{}", row.name);
+    }
+    r
+}
+
+fn rendered(report: &Report, style: &Style) -> String {
+    let mut out = Vec::new();
+    write_table(&mut out, report, style).unwrap();
+    String::from_utf8(out).unwrap()
+}
+
+#[test]
+fn a_width_limit_shortens_text_cells_in_the_middle_and_keeps_numbers() {
+    let report = failing_report();
+    let wide = rendered(&report, &Style::plain());
+    assert_eq!(wide, report.to_string());
+    let longest = |s: &str| {
+        s.lines()
+            .skip(1)
+            .take(4)
+            .map(|l| l.chars().count())
+            .max()
+            .unwrap()
+    };
+    let limit = longest(&wide) - 10;
+    let narrow = rendered(
+        &report,
+        &Style {
+            color: false,
+            width: Some(limit),
+        },
+    );
+    // Header and rows (not the title and footer lines) fit.
+    for line in narrow.lines().skip(1).take(4) {
+        assert!(
+            line.chars().count() <= limit,
+            "{line:?} is wider than {limit}"
+        );
+    }
+    assert!(narrow.contains('…'), "{narrow}");
+    // Numbers are never cut: every number of the wide table is still there.
+    let numbers = |s: &str| -> Vec<String> {
+        s.split_whitespace()
+            .filter(|w| w.contains("e-") || w.contains("e0"))
+            .map(String::from)
+            .collect()
+    };
+    assert_eq!(numbers(&wide), numbers(&narrow));
+}
+
+#[test]
+fn colour_only_when_asked_and_the_rows_line_up() {
+    let report = failing_report();
+    let plain = rendered(&report, &Style::plain());
+    let coloured = rendered(
+        &report,
+        &Style {
+            color: true,
+            width: None,
+        },
+    );
+    assert!(!plain.contains('\x1b'));
+    assert!(coloured.contains("\x1b[1;31mFAIL"), "{coloured:?}");
+    // Header and rows align: the verdict column starts at the same place.
+    let lines: Vec<&str> = plain.lines().skip(1).take(4).collect();
+    let at = lines[0].find("verdict").unwrap();
+    for l in &lines[1..] {
+        let cell = &l[at..];
+        assert!(
+            cell.starts_with("FAIL") || cell.starts_with("ok"),
+            "{plain}"
+        );
+    }
+}
+
+#[test]
+fn exact_text_at_a_width() {
+    let report = failing_report();
+    let text = rendered(
+        &report,
+        &Style {
+            color: false,
+            width: Some(130),
+        },
+    );
+    // The rows and header only: the bounds' last digits depend on rounding.
+    let table: Vec<String> = text
+        .lines()
+        .skip(1)
+        .take(4)
+        .map(|l| {
+            l.split("  bound")
+                .next()
+                .unwrap_or(l)
+                .chars()
+                .take(76)
+                .collect()
+        })
+        .collect();
+    assert_eq!(
+        table,
+        [
+            "#  tensor            role   shape   checked  bad  worst at   analytic    numeric",
+            "1  apiary.n…score.w  param  [2, 2]        4    4  [0, 0]     6.526e-1  -6.526e-1",
+            "2  apiary.n…eadings  input  [2, 2]        4    0  [1, 0]    -6.774e-3  -6.774e-3",
+            "3  apiary.n…score.b  param  [2]           2    0  [1]       -3.618e-2  -3.618e-2",
+        ]
+        .map(|s| s.chars().take(76).collect::<String>()),
+        "{text}"
+    );
+    assert!(text
+        .lines()
+        .skip(1)
+        .take(4)
+        .all(|l| l.chars().count() <= 130));
+}
