@@ -69,30 +69,21 @@ false_alarm_tests! {
     no_false_alarms_max_pool_f64: "max-pool", "f64";
     no_false_alarms_max_pool_f32: "max-pool", "f32";
     no_false_alarms_avg_pool_f32: "avg-pool", "f32";
-    #[ignore = "core finding 2"]
     no_false_alarms_layer_norm_f64: "layer-norm", "f64";
-    #[ignore = "core finding 2"]
     no_false_alarms_layer_norm_f32: "layer-norm", "f32";
     no_false_alarms_batch_norm_f64: "batch-norm", "f64";
-    #[ignore = "core finding 2"]
     no_false_alarms_batch_norm_f32: "batch-norm", "f32";
     no_false_alarms_rms_norm_f64: "rms-norm", "f64";
     no_false_alarms_rms_norm_f32: "rms-norm", "f32";
     no_false_alarms_softmax_cross_entropy_f64: "softmax-cross-entropy", "f64";
     no_false_alarms_softmax_cross_entropy_f32: "softmax-cross-entropy", "f32";
-    #[ignore = "core finding 2"]
     no_false_alarms_attention_f64: "attention", "f64";
-    #[ignore = "core finding 2"]
     no_false_alarms_attention_f32: "attention", "f32";
     no_false_alarms_embedding_f32: "embedding", "f32";
     no_false_alarms_gru_cell_f64: "gru-cell", "f64";
-    #[ignore = "core finding 2"]
     no_false_alarms_gru_cell_f32: "gru-cell", "f32";
-    #[ignore = "core finding 3"]
     no_false_alarms_gelu_f32: "gelu", "f32";
-    #[ignore = "core finding 2"]
     no_false_alarms_residual_f64: "residual", "f64";
-    #[ignore = "core finding 2"]
     no_false_alarms_residual_f32: "residual", "f32";
 }
 
