@@ -97,7 +97,8 @@ fn baseline<R: Real>(layer: &dyn Layer<Real = R>, args: &Args<R>, seed: u64) -> 
             let n = ((plus - minus) / two_h).as_f64();
             let a = grad.data()[j].as_f64();
             // NaN never passes.
-            if !((a - n).abs() <= ABS_TOL + REL_TOL * n.abs()) {
+            let agrees = (a - n).abs() <= ABS_TOL + REL_TOL * n.abs();
+            if !agrees {
                 run.passed = false;
             }
         }

@@ -2,6 +2,8 @@
 //! diagnosis, and no correct layer raises a false alarm over a few hundred
 //! random cases per layer and precision. The full-size run (1,000+ cases per
 //! layer, with a baseline checker beside it) is `cargo bench --bench quality`.
+// Check values are copied digit for digit from their source.
+#![allow(clippy::excessive_precision)]
 #![cfg(feature = "gallery")]
 
 use std::collections::HashSet;

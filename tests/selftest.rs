@@ -3,6 +3,8 @@
 //! mode written here (independent of the complex-step type, the difference
 //! schemes and the gallery). Correct layers must always pass; a layer with
 //! one broken derivative rule must always fail.
+// Check values are copied digit for digit from their source.
+#![allow(clippy::excessive_precision)]
 #![cfg(feature = "proptest")]
 
 use std::cell::RefCell;

@@ -472,11 +472,11 @@ impl<R: Real> GenericLayer for RmsNorm<R> {
         };
         let projection = R::from_f64(projection);
         let mut dx = vec![R::zero(); xd.len()];
-        for row in 0..n {
+        for (row, &r_row) in r.iter().enumerate().take(n) {
             let span = row * d..(row + 1) * d;
             let m = span.clone().map(|i| gy[i] * xhat[i]).sum::<R>() / R::from_f64(d as f64);
             for i in span {
-                dx[i] = (gy[i] - projection * xhat[i] * m) / r[row];
+                dx[i] = (gy[i] - projection * xhat[i] * m) / r_row;
             }
         }
         let by: Vec<R> = if self.bug == Some(RmsNormBug::GammaFromOutput) {
