@@ -6,27 +6,27 @@
 //! intermediates recomputed in the backward), documents its formulas, and
 //! passes the audit. Each also carries an enum of planted bugs, one variant
 //! per realistic mistake, with a one-line description and what the audit
-//! should say about it ([`Expect`]).
+//! should say about it ([`Expect`](crate::gallery::Expect)).
 //!
-//! [`registry`] lists every case, correct and planted, with a constructor
+//! [`registry`](crate::gallery::registry) lists every case, correct and planted, with a constructor
 //! for random arguments; the tests, the quality bench and the examples all
 //! read it.
 //!
 //! | layer | type | generic | planted bugs |
 //! |---|---|---|---|
-//! | dense (affine) | [`Dense`] | yes | [`DenseBug`] |
-//! | 2-D convolution, stride and padding | [`Conv2d`] | yes | [`Conv2dBug`] |
-//! | 2-D max-pool | [`MaxPool2d`] | yes | [`MaxPoolBug`] |
-//! | 2-D average pool | [`AvgPool2d`] | `f32` only | [`AvgPoolBug`] |
-//! | layer norm | [`LayerNorm`] | yes | [`LayerNormBug`] |
-//! | batch norm (training mode) | [`BatchNorm`] | yes | [`BatchNormBug`] |
-//! | RMS norm | [`RmsNorm`] | yes | [`RmsNormBug`] |
-//! | softmax with cross-entropy | [`SoftmaxCrossEntropy`] | yes | [`SoftmaxBug`] |
-//! | multi-head attention | [`Attention`] | yes | [`AttentionBug`] |
-//! | embedding lookup | [`Embedding`] | `f32` only | [`EmbeddingBug`] |
-//! | GRU cell | [`GruCell`] | yes | [`GruBug`] |
-//! | GELU (erf form) | [`Gelu`] | `f32` only | [`GeluBug`] |
-//! | residual block `x + gelu(x·wᵀ + b)` | [`Residual`] | yes | [`ResidualBug`] |
+//! | dense (affine) | [`Dense`](crate::gallery::Dense) | yes | [`DenseBug`](crate::gallery::DenseBug) |
+//! | 2-D convolution, stride and padding | [`Conv2d`](crate::gallery::Conv2d) | yes | [`Conv2dBug`](crate::gallery::Conv2dBug) |
+//! | 2-D max-pool | [`MaxPool2d`](crate::gallery::MaxPool2d) | yes | [`MaxPoolBug`](crate::gallery::MaxPoolBug) |
+//! | 2-D average pool | [`AvgPool2d`](crate::gallery::AvgPool2d) | `f32` only | [`AvgPoolBug`](crate::gallery::AvgPoolBug) |
+//! | layer norm | [`LayerNorm`](crate::gallery::LayerNorm) | yes | [`LayerNormBug`](crate::gallery::LayerNormBug) |
+//! | batch norm (training mode) | [`BatchNorm`](crate::gallery::BatchNorm) | yes | [`BatchNormBug`](crate::gallery::BatchNormBug) |
+//! | RMS norm | [`RmsNorm`](crate::gallery::RmsNorm) | yes | [`RmsNormBug`](crate::gallery::RmsNormBug) |
+//! | softmax with cross-entropy | [`SoftmaxCrossEntropy`](crate::gallery::SoftmaxCrossEntropy) | yes | [`SoftmaxBug`](crate::gallery::SoftmaxBug) |
+//! | multi-head attention | [`Attention`](crate::gallery::Attention) | yes | [`AttentionBug`](crate::gallery::AttentionBug) |
+//! | embedding lookup | [`Embedding`](crate::gallery::Embedding) | `f32` only | [`EmbeddingBug`](crate::gallery::EmbeddingBug) |
+//! | GRU cell | [`GruCell`](crate::gallery::GruCell) | yes | [`GruBug`](crate::gallery::GruBug) |
+//! | GELU (erf form) | [`Gelu`](crate::gallery::Gelu) | `f32` only | [`GeluBug`](crate::gallery::GeluBug) |
+//! | residual block `x + gelu(x·wᵀ + b)` | [`Residual`](crate::gallery::Residual) | yes | [`ResidualBug`](crate::gallery::ResidualBug) |
 //!
 //! Generic layers implement [`GenericLayer`](crate::GenericLayer) for
 //! `Real = f32` and `Real = f64`, so the audit uses complex-step
