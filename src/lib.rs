@@ -92,6 +92,10 @@ mod diagnosis;
 mod env;
 mod error;
 mod format;
+/// Correct reference layers with hand-written backward passes, and planted
+/// bugs in them (feature `gallery`).
+#[cfg(feature = "gallery")]
+pub mod gallery;
 mod harness;
 mod layer;
 #[cfg(feature = "ndarray")]

@@ -1,0 +1,148 @@
+//! A residual block composing the dense layer and GELU:
+//! `y = x + gelu(x·wᵀ + b)`.
+
+use std::marker::PhantomData;
+
+use super::{affine, gelu, gelu_derivative, planted_bugs, tensor, Case, Draw, Kind, Subject};
+use crate::layer::{Args, GenericLayer, Gradients, Signature};
+use crate::scalar::{Real, Scalar};
+use crate::tensor::Tensor;
+
+planted_bugs! {
+    /// Mistakes planted in [`Residual`]'s backward.
+    ResidualBug {
+        /// The skip connection's gradient is dropped: dx only flows through the branch.
+        ResidualDropped = "residual-dropped" => ("x", Kind::Partial),
+        /// The skip connection's gradient is added twice.
+        ResidualTwice = "residual-twice" => ("x", Kind::Partial),
+        /// GELU's derivative is taken at its output instead of its input.
+        DerivativeAtOutput = "derivative-at-output" => ("w", Kind::Partial),
+        /// The (square) weight gradient is transposed.
+        WeightTransposed = "weight-transposed" => ("w", Kind::Transposed),
+    }
+}
+
+/// A residual block: `y = x + gelu(a)`, `a = x·wᵀ + b`, with a square `w`.
+///
+/// Backward: `da = g ⊙ gelu′(a)`; `dx = g + da·w` (skip plus branch),
+/// `dw = daᵀ·x`, `db = Σ_n da`.
+///
+/// ```
+/// use plumbline::gallery::Residual;
+/// use plumbline::Audit;
+/// let report = Audit::new().run(&Residual::<f64>::new(None), &Residual::args(9))?;
+/// report.assert_passed();
+/// # Ok::<(), plumbline::Error>(())
+/// ```
+pub struct Residual<R> {
+    /// The planted bug, or `None` for the correct layer.
+    pub bug: Option<ResidualBug>,
+    _r: PhantomData<R>,
+}
+
+impl<R: Real> Residual<R> {
+    /// The layer, correct (`None`) or with a planted bug.
+    pub fn new(bug: Option<ResidualBug>) -> Self {
+        Residual {
+            bug,
+            _r: PhantomData,
+        }
+    }
+
+    /// Random arguments: batch 2, width 3, values in [-1, 1].
+    pub fn args(seed: u64) -> Args<R> {
+        let mut d = Draw::new(seed);
+        Args::new(
+            vec![d.uniform(&[2, 3], 1.0)],
+            vec![d.uniform(&[3, 3], 1.0), d.uniform(&[3], 1.0)],
+        )
+    }
+}
+
+impl<R: Real> GenericLayer for Residual<R> {
+    type Real = R;
+
+    fn signature(&self) -> Signature {
+        Signature::new()
+            .input("x", "batch, width")
+            .param("w", "width, width")
+            .param("b", "width")
+            .output("y", "batch, width")
+    }
+
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
+        let (n, d) = (x.shape()[0], x.shape()[1]);
+        let pre = affine(x.data(), w.data(), Some(b.data()), n, d, d);
+        let y = x
+            .data()
+            .iter()
+            .zip(pre)
+            .map(|(&xi, ai)| xi + gelu(ai))
+            .collect();
+        vec![tensor(vec![n, d], y)]
+    }
+
+    fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
+        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
+        let (n, d) = (x.shape()[0], x.shape()[1]);
+        let (xd, wd, g) = (x.data(), w.data(), up[0].data());
+        let pre = affine(xd, wd, Some(b.data()), n, d, d);
+        let da: Vec<R> = pre
+            .iter()
+            .zip(g)
+            .map(|(&ai, &gi)| {
+                let at = if self.bug == Some(ResidualBug::DerivativeAtOutput) {
+                    gelu(ai)
+                } else {
+                    ai
+                };
+                gi * gelu_derivative(at)
+            })
+            .collect();
+        let skip = match self.bug {
+            Some(ResidualBug::ResidualDropped) => R::zero(),
+            Some(ResidualBug::ResidualTwice) => R::from_f64(2.0),
+            _ => R::one(),
+        };
+        let mut dx: Vec<R> = g.iter().map(|&gi| skip * gi).collect();
+        let mut dw = vec![R::zero(); d * d];
+        let mut db = vec![R::zero(); d];
+        for r in 0..n {
+            for o in 0..d {
+                let dao = da[r * d + o];
+                db[o] += dao;
+                for k in 0..d {
+                    dx[r * d + k] += dao * wd[o * d + k];
+                    dw[o * d + k] += dao * xd[r * d + k];
+                }
+            }
+        }
+        if self.bug == Some(ResidualBug::WeightTransposed) {
+            dw = (0..d * d).map(|f| dw[(f % d) * d + f / d]).collect();
+        }
+        Gradients::from(vec![
+            tensor(vec![n, d], dx),
+            tensor(vec![d, d], dw),
+            tensor(vec![d], db),
+        ])
+    }
+}
+
+pub(crate) fn register(out: &mut Vec<Case>) {
+    out.push(Case::new("residual", "f64", true, None, |s| {
+        Subject::F64(Box::new(Residual::<f64>::new(None)), Residual::args(s))
+    }));
+    out.push(Case::new("residual", "f32", true, None, |s| {
+        Subject::F32(Box::new(Residual::<f32>::new(None)), Residual::args(s))
+    }));
+    for &bug in ResidualBug::ALL {
+        out.push(Case::new(
+            "residual",
+            "f64",
+            true,
+            Some(bug.info()),
+            move |s| Subject::F64(Box::new(Residual::<f64>::new(Some(bug))), Residual::args(s)),
+        ));
+    }
+}
