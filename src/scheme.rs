@@ -80,6 +80,9 @@ pub struct Estimate {
     pub forward_scale: f64,
     /// Function evaluations spent.
     pub evals: usize,
+    /// The widest step the value relied on (0 for the complex step, whose
+    /// step is imaginary): the reach of the stencil, for the kink test.
+    pub step: f64,
     /// `false` when the scheme's truncation error (not its rounding)
     /// exceeds [`INCONCLUSIVE`] of the derivative's size: the reference
     /// cannot tell a right value from a wrong one there.
@@ -91,7 +94,8 @@ pub struct Estimate {
 pub const INCONCLUSIVE: f64 = 1e-2;
 
 fn conclusive(truncation: f64, value: f64, scale: f64) -> bool {
-    !(truncation > INCONCLUSIVE * value.abs().max(scale))
+    let limit = INCONCLUSIVE * value.abs().max(scale);
+    truncation.partial_cmp(&limit) != Some(std::cmp::Ordering::Greater)
 }
 
 /// One evaluation of the probe scalar.
@@ -146,6 +150,7 @@ pub(crate) fn central(line: &mut impl Line) -> Estimate {
         scale: p1.scale,
         forward_scale: p1.touched / line.scale(),
         evals: 4,
+        step: p2.width / 2.0,
         conclusive: truncation <= rounding || conclusive(truncation, p1.derivative, p1.scale),
     }
 }
@@ -160,23 +165,47 @@ const SAFE: f64 = 2.0;
 const RIDDERS_INFLATE: f64 = 10.0;
 
 /// Ridders' method from initial step `h0 = 0.1·max(|x|, 1)`.
-/// Ridders' method from h0 = 0.1·max(|x|, 1); where the tableau stays
-/// inconclusive (φ changes on a scale shorter than the stencil), it starts
-/// again from h0/8 and h0/64 and keeps the estimate with the smallest error.
+/// Ridders' method from h0 = 0.1·max(|x|, 1), cross-checked against a
+/// Richardson-extrapolated central difference at the small steps
+/// 2ε^(1/3)·max(|x|, 1) and half that. Where the
+/// tableau stays inconclusive, or disagrees with that check (φ oscillates
+/// faster than the stencil, and the extrapolation converged to the wrong
+/// value), it starts again from h0/8, h0/64, ... (down to 8× the check's
+/// step) and keeps the first conclusive estimate.
 pub(crate) fn ridders(line: &mut impl Line) -> Estimate {
-    let mut h0 = 0.1 * line.scale();
+    let h0 = 0.1 * line.scale();
+    ridders_checked(line, h0)
+}
+
+fn ridders_checked(line: &mut impl Line, mut h0: f64) -> Estimate {
+    // The check: one Richardson step over central differences at h and h/2
+    // (error O(h⁴)), at a step far below Ridders' first ones.
+    let h_check = 2.0 * line.eps().cbrt() * line.scale();
+    let wide = line.pair(h_check);
+    let narrow = line.pair(h_check / 2.0);
+    let check = (4.0 * narrow.derivative - wide.derivative) / 3.0;
+    let check_noise = 8.0 * line.eps() * narrow.magnitude.max(wide.magnitude) / narrow.width;
+    // Ridders' answer must sit within its own error bar of the check (plus
+    // the check's rounding, and a relative slack far below any bug).
+    let consistent =
+        |e: &Estimate| (e.value - check).abs() <= e.error + 10.0 * check_noise + 1e-9 * check.abs();
     let mut best = ridders_from(line, h0);
-    let mut evals = best.evals;
-    for _ in 0..2 {
-        if best.conclusive {
-            break;
-        }
+    best.conclusive &= consistent(&best);
+    let mut evals = 4 + best.evals;
+    while !best.conclusive && h0 / 8.0 >= 8.0 * h_check {
         h0 /= 8.0;
-        let next = ridders_from(line, h0);
+        let mut next = ridders_from(line, h0);
+        next.conclusive &= consistent(&next);
         evals += next.evals;
-        if next.error < best.error || !best.error.is_finite() {
+        if next.conclusive || next.error < best.error || !best.error.is_finite() {
             best = next;
         }
+    }
+    // Two independent estimates that differ by d leave an uncertainty of at
+    // least d: the tableau's own error estimate can be optimistic by far
+    // more than its 10× inflation.
+    if best.conclusive {
+        best.error = best.error.max((best.value - check).abs());
     }
     best.evals = evals;
     best
@@ -190,6 +219,9 @@ pub(crate) fn ridders_from(line: &mut impl Line, h0: f64) -> Estimate {
     // Rounding of each column: ε|φ| over that column's step width.
     let mut noise = [0.0_f64; NTAB];
     noise[0] = line.eps() * first.magnitude / first.width;
+    let mut steps = [0.0_f64; NTAB];
+    steps[0] = first.width / 2.0;
+    let mut ans_step = steps[0];
     let mut evals = 2;
     let mut err = f64::INFINITY;
     let mut ans = a[0][0];
@@ -200,6 +232,7 @@ pub(crate) fn ridders_from(line: &mut impl Line, h0: f64) -> Estimate {
         evals += 2;
         a[0][i] = p.derivative;
         noise[i] = line.eps() * p.magnitude / p.width;
+        steps[i] = p.width / 2.0;
         let mut fac = CON * CON;
         for j in 1..=i {
             a[j][i] = (a[j - 1][i] * fac - a[j - 1][i - 1]) / (fac - 1.0);
@@ -211,6 +244,8 @@ pub(crate) fn ridders_from(line: &mut impl Line, h0: f64) -> Estimate {
                 err = errt;
                 ans = a[j][i];
                 ans_noise = noise[i];
+                // A[j][i] combines the columns i − j ..= i.
+                ans_step = steps[i - j];
             }
         }
         if (a[i][i] - a[i - 1][i - 1]).abs() >= SAFE * err {
@@ -228,6 +263,7 @@ pub(crate) fn ridders_from(line: &mut impl Line, h0: f64) -> Estimate {
         scale: first.scale,
         forward_scale: first.touched / line.scale(),
         evals,
+        step: ans_step,
         conclusive: truncation <= floor || conclusive(truncation, ans, first.scale),
     }
 }
@@ -268,24 +304,34 @@ pub(crate) fn kink_test(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
     if (r - 0.25).abs() <= 0.15 {
         return None;
     }
+    let at_point = r.abs() > 0.5;
+    // A kink at the point leaves the one-sided slopes nearly the same at h
+    // and h/4; a function that merely oscillates faster than the step does
+    // not, and is no kink (it must not excuse a disagreement).
+    if at_point && !s.stable(0.5) {
+        return None;
+    }
     Some(KinkProbe {
         left: s.left,
         right: s.right,
         noise: KAPPA * s.noise_quarter,
-        at_point: r.abs() > 0.5,
+        at_point,
     })
 }
 
 /// One-sided derivatives at step h/4 along a line, whether or not it has
-/// a kink there (used for a joint move of several kink elements).
-pub(crate) fn one_sided_probe(line: &mut impl Line, h: f64) -> KinkProbe {
+/// a kink there (used for a joint move of several kink elements). `None`
+/// when they are not stable between steps h and h/4: φ is rough on that
+/// scale (it oscillates faster than the step), and no one-sided value can
+/// be trusted.
+pub(crate) fn one_sided_probe(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
     let s = one_sided(line, h);
-    KinkProbe {
+    s.stable(0.25).then_some(KinkProbe {
         left: s.left,
         right: s.right,
         noise: 10.0 * s.noise_quarter,
         at_point: true,
-    }
+    })
 }
 
 /// The five evaluations of the kink test and what they give.
@@ -299,6 +345,21 @@ struct OneSided {
     /// D₋ and D₊ at step h/4.
     left: f64,
     right: f64,
+    /// D₋ and D₊ at step h.
+    left_h: f64,
+    right_h: f64,
+}
+
+impl OneSided {
+    /// The one-sided slopes at h and h/4 agree within `fraction` of the
+    /// largest of them (plus rounding).
+    fn stable(&self, fraction: f64) -> bool {
+        let size = [self.left, self.right, self.left_h, self.right_h]
+            .iter()
+            .fold(0.0_f64, |m, v| m.max(v.abs()));
+        let slack = fraction * size + 10.0 * self.noise_h;
+        (self.left - self.left_h).abs() <= slack && (self.right - self.right_h).abs() <= slack
+    }
 }
 
 fn one_sided(line: &mut impl Line, h: f64) -> OneSided {
@@ -326,6 +387,8 @@ fn one_sided(line: &mut impl Line, h: f64) -> OneSided {
         noise_quarter: 4.0 * eps_a / (h / 4.0),
         left,
         right,
+        left_h: l1,
+        right_h: r1,
     }
 }
 
@@ -388,10 +451,10 @@ pub fn central_difference(f: impl FnMut(f64) -> f64, x: f64) -> Estimate {
 /// ```
 /// let d = plumbline::ridders_derivative(f64::exp, 0.0, 0.1);
 /// assert!((d.value - 1.0).abs() < 1e-13);
-/// assert!(d.evals <= 20);
+/// assert!(d.evals <= 24); // 4 for the cross-check, at most 20 for the tableau
 /// ```
 pub fn ridders_derivative(f: impl FnMut(f64) -> f64, x: f64, h0: f64) -> Estimate {
-    ridders_from(&mut ScalarLine { f, x }, h0)
+    ridders_checked(&mut ScalarLine { f, x }, h0)
 }
 
 /// One-sided derivatives of a scalar function at `x` if it has a kink

@@ -122,7 +122,6 @@ fn every_planted_bug_is_detected_with_the_expected_diagnosis() {
 }
 
 #[test]
-#[ignore = "core finding 1"]
 fn max_pool_ties_to_every_max_is_detected() {
     let layer = MaxPool2d::<f64>::new(Some(MaxPoolBug::TiesToEveryMax));
     let report = Audit::new().run(&layer, &MaxPool2d::tied_args(1)).unwrap();
