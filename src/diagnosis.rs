@@ -52,6 +52,12 @@ pub enum Diagnosis {
         /// Where they are, e.g. `last slice of axis 0 (index 3)`.
         pattern: String,
     },
+    /// Every element is wrong, and no sign, factor or transposition explains
+    /// it: a wrong formula.
+    WrongValues {
+        /// Elements checked (all wrong).
+        of: usize,
+    },
     /// A NaN or infinity, and where it first appears.
     NonFinite {
         /// E.g. `backward at [0, 2]` or `forward output `y` at [1]`.
@@ -126,6 +132,12 @@ impl fmt::Display for Diagnosis {
             Diagnosis::Spurious => f.write_str("spurious: non-zero, derivative is 0"),
             Diagnosis::Partial { wrong, of, pattern } => {
                 write!(f, "partial: {pattern} ({wrong} of {of} wrong)")
+            }
+            Diagnosis::WrongValues { of } => {
+                write!(
+                    f,
+                    "wrong everywhere: no sign, factor or transpose fits ({of} of {of})"
+                )
             }
             Diagnosis::NonFinite { place } => write!(f, "non-finite in {place}"),
             Diagnosis::ForwardNotRepeatable { detail } => {
@@ -273,6 +285,9 @@ pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> 
     }
     if let Some(axes) = transposed_match(&row.shape, grad, el) {
         return Some(Diagnosis::Transposed { axes });
+    }
+    if wrong.len() == smooth.len() && wrong.len() > 1 {
+        return Some(Diagnosis::WrongValues { of: wrong.len() });
     }
     Some(Diagnosis::Partial {
         wrong: wrong.len(),

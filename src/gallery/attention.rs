@@ -15,11 +15,11 @@ planted_bugs! {
         /// The scores' gradient is divided by d_head instead of √d_head.
         ScaleTwice = "scale-twice" => ("wq", Kind::Scaled(std::f64::consts::FRAC_1_SQRT_2)),
         /// The softmax Jacobian is reduced to its diagonal, P(1 − P).
-        SoftmaxDiagonalOnly = "softmax-diagonal-only" => ("wq", Kind::Partial),
+        SoftmaxDiagonalOnly = "softmax-diagonal-only" => ("wq", Kind::WrongFormula),
         /// The value gradient uses the attention weights untransposed (P·dO instead of Pᵀ·dO).
-        WeightsNotTransposed = "weights-not-transposed" => ("wv", Kind::Partial),
+        WeightsNotTransposed = "weights-not-transposed" => ("wv", Kind::WrongFormula),
         /// The query gradient of one head is computed with the keys of the other head.
-        HeadsMixed = "heads-mixed" => ("wq", Kind::Partial),
+        HeadsMixed = "heads-mixed" => ("wq", Kind::WrongFormula),
         /// The key gradient is negated.
         KeySignFlipped = "key-sign-flipped" => ("wk", Kind::SignFlipped),
     }

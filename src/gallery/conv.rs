@@ -11,15 +11,15 @@ planted_bugs! {
     /// Mistakes planted in [`Conv2d`]'s backward.
     Conv2dBug {
         /// The input gradient is scattered as if the stride were 1.
-        StrideIgnored = "stride-ignored" => ("x", Kind::Partial),
+        StrideIgnored = "stride-ignored" => ("x", Kind::WrongFormula),
         /// The weight gradient reads the input one column to the right (index off by one).
-        IndexOffByOne = "index-off-by-one" => ("w", Kind::Partial),
+        IndexOffByOne = "index-off-by-one" => ("w", Kind::WrongFormula),
         /// The input gradient forgets to subtract the padding from the position.
-        PaddingIgnored = "padding-ignored" => ("x", Kind::Partial),
+        PaddingIgnored = "padding-ignored" => ("x", Kind::WrongFormula),
         /// The input gradient uses the kernel flipped, as for a true convolution.
-        KernelFlipped = "kernel-flipped" => ("x", Kind::Partial),
+        KernelFlipped = "kernel-flipped" => ("x", Kind::WrongFormula),
         /// The bias gradient sums only the first output position of each map.
-        BiasFirstPosition = "bias-first-position" => ("b", Kind::Partial),
+        BiasFirstPosition = "bias-first-position" => ("b", Kind::WrongFormula),
     }
 }
 

@@ -10,9 +10,9 @@ planted_bugs! {
     /// Mistakes planted in [`Embedding`]'s backward.
     EmbeddingBug {
         /// A repeated id overwrites the row's gradient instead of adding to it.
-        RepeatsOverwrite = "repeats-overwrite" => ("table", Kind::Partial),
+        RepeatsOverwrite = "repeats-overwrite" => ("table", Kind::WrongFormula),
         /// The gradient is scattered to row id + 1 (index off by one).
-        RowOffByOne = "row-off-by-one" => ("table", Kind::Partial),
+        RowOffByOne = "row-off-by-one" => ("table", Kind::WrongFormula),
         /// The gradient is averaged over the tokens although the forward does not average.
         MeanOverTokens = "mean-over-tokens" => ("table", Kind::Scaled(0.2)),
         /// The table gradient is added into a buffer kept between calls and the buffer returned.

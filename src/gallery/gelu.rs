@@ -10,13 +10,13 @@ planted_bugs! {
     /// Mistakes planted in [`Gelu`]'s backward.
     GeluBug {
         /// The derivative is evaluated at the output instead of the input.
-        DerivativeAtOutput = "derivative-at-output" => ("x", Kind::Partial),
+        DerivativeAtOutput = "derivative-at-output" => ("x", Kind::WrongFormula),
         /// The x·φ(x) term is dropped: only Φ(x) is returned.
-        MissingDensityTerm = "missing-density-term" => ("x", Kind::Partial),
+        MissingDensityTerm = "missing-density-term" => ("x", Kind::WrongFormula),
         /// The normal density is written without its 1/√(2π).
-        DensityUnnormalised = "density-unnormalised" => ("x", Kind::Partial),
+        DensityUnnormalised = "density-unnormalised" => ("x", Kind::WrongFormula),
         /// The derivative of the tanh approximation is used for the exact (erf) forward.
-        TanhApproximation = "tanh-approximation" => ("x", Kind::Partial),
+        TanhApproximation = "tanh-approximation" => ("x", Kind::WrongFormula),
         /// The gradient is negated.
         SignFlipped = "sign-flipped" => ("x", Kind::SignFlipped),
     }

@@ -11,11 +11,11 @@ planted_bugs! {
     /// Mistakes planted in [`GruCell`]'s backward.
     GruBug {
         /// The direct path to the previous state uses (1 − z) instead of z.
-        GateSwapped = "gate-swapped" => ("h", Kind::Partial),
+        GateSwapped = "gate-swapped" => ("h", Kind::WrongFormula),
         /// The candidate's tanh derivative is taken at its output (1 − tanh(c)²) instead of its input.
-        DerivativeAtOutput = "derivative-at-output" => ("wx", Kind::Partial),
+        DerivativeAtOutput = "derivative-at-output" => ("wx", Kind::WrongFormula),
         /// The reset gate's gradient multiplies by the candidate instead of the recurrent term it gates.
-        ResetUsesCandidate = "reset-uses-candidate" => ("wh", Kind::Partial),
+        ResetUsesCandidate = "reset-uses-candidate" => ("wh", Kind::WrongFormula),
         /// The gradient of the previous hidden state is not returned.
         HiddenMissing = "hidden-missing" => ("h", Kind::Missing),
         /// The recurrent weight gradient is returned transposed, [hidden, 3·hidden].

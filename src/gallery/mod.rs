@@ -146,8 +146,12 @@ pub enum Kind {
     WrongShape,
     /// [`Diagnosis::Missing`].
     Missing,
-    /// [`Diagnosis::Partial`]: the honest answer for a wrong formula.
-    Partial,
+    /// A wrong formula: [`Diagnosis::Partial`] (some elements wrong) or
+    /// [`Diagnosis::WrongValues`] (every element, with no sign, factor or
+    /// transpose pattern): the honest answer when nothing simpler fits.
+    WrongFormula,
+    /// [`Diagnosis::SharedKink`]: tied elements handed one gradient each.
+    SharedKink,
     /// [`Diagnosis::BackwardAccumulates`].
     Accumulates,
 }
@@ -171,7 +175,8 @@ impl Kind {
             (Kind::Transposed, Diagnosis::Transposed { .. }) => true,
             (Kind::WrongShape, Diagnosis::WrongShape { .. }) => true,
             (Kind::Missing, Diagnosis::Missing) => true,
-            (Kind::Partial, Diagnosis::Partial { .. }) => true,
+            (Kind::WrongFormula, Diagnosis::Partial { .. } | Diagnosis::WrongValues { .. }) => true,
+            (Kind::SharedKink, Diagnosis::SharedKink { .. }) => true,
             (Kind::Accumulates, Diagnosis::BackwardAccumulates { .. }) => true,
             _ => false,
         }

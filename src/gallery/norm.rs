@@ -16,21 +16,21 @@ planted_bugs! {
     /// Mistakes planted in [`LayerNorm`]'s backward (and one in its forward).
     LayerNormBug {
         /// The input gradient drops the −mean(g·γ) term (the mean's own dependence on x).
-        MissingMeanTerm = "missing-mean-term" => ("x", Kind::Partial),
+        MissingMeanTerm = "missing-mean-term" => ("x", Kind::WrongFormula),
         /// The input gradient drops the −ŷ·mean(g·γ·ŷ) term (the variance's dependence on x).
-        MissingVarianceTerm = "missing-variance-term" => ("x", Kind::Partial),
+        MissingVarianceTerm = "missing-variance-term" => ("x", Kind::WrongFormula),
         /// The backward recomputes σ without ε.
-        EpsilonLeftOut = "epsilon-left-out" => ("x", Kind::Partial),
+        EpsilonLeftOut = "epsilon-left-out" => ("x", Kind::WrongFormula),
         /// The backward recomputes the variance with 1/(d−1) while the forward uses 1/d.
-        UnbiasedVariance = "unbiased-variance" => ("x", Kind::Partial),
+        UnbiasedVariance = "unbiased-variance" => ("x", Kind::WrongFormula),
         /// The scale gradient multiplies g by the raw input instead of the normalised one.
-        GammaFromInput = "gamma-from-input" => ("gamma", Kind::Partial),
+        GammaFromInput = "gamma-from-input" => ("gamma", Kind::WrongFormula),
         /// The shift gradient is negated.
         BetaSignFlipped = "beta-sign-flipped" => ("beta", Kind::SignFlipped),
         /// The scale gradient is averaged over the batch instead of summed.
         GammaMeanOverBatch = "gamma-mean-over-batch" => ("gamma", Kind::Scaled(1.0 / 3.0)),
         /// The forward caches mean and σ from its first call and reuses them on later calls.
-        StaleStatistics = "stale-statistics" => ("x", Kind::Partial),
+        StaleStatistics = "stale-statistics" => ("x", Kind::WrongFormula),
     }
 }
 
@@ -38,15 +38,15 @@ planted_bugs! {
     /// Mistakes planted in [`BatchNorm`]'s backward.
     BatchNormBug {
         /// The input gradient drops the −mean over the batch of g·γ.
-        MissingMeanTerm = "missing-mean-term" => ("x", Kind::Partial),
+        MissingMeanTerm = "missing-mean-term" => ("x", Kind::WrongFormula),
         /// The batch statistics are treated as constants: dx = g·γ/σ.
-        StatisticsAsConstants = "statistics-as-constants" => ("x", Kind::Partial),
+        StatisticsAsConstants = "statistics-as-constants" => ("x", Kind::WrongFormula),
         /// The backward takes its means over the features instead of over the batch.
-        WrongAxis = "wrong-axis" => ("x", Kind::Partial),
+        WrongAxis = "wrong-axis" => ("x", Kind::WrongFormula),
         /// The shift gradient takes the first sample only instead of summing over the batch.
-        BetaFirstSampleOnly = "beta-first-sample-only" => ("beta", Kind::Partial),
+        BetaFirstSampleOnly = "beta-first-sample-only" => ("beta", Kind::WrongFormula),
         /// The backward recomputes σ without ε.
-        EpsilonLeftOut = "epsilon-left-out" => ("x", Kind::Partial),
+        EpsilonLeftOut = "epsilon-left-out" => ("x", Kind::WrongFormula),
     }
 }
 
@@ -54,13 +54,13 @@ planted_bugs! {
     /// Mistakes planted in [`RmsNorm`]'s backward.
     RmsNormBug {
         /// The input gradient drops the −x̂·mean(g·γ·x̂) term (the RMS's dependence on x).
-        MissingProjection = "missing-projection" => ("x", Kind::Partial),
+        MissingProjection = "missing-projection" => ("x", Kind::WrongFormula),
         /// The factor 1/2 of the square root's derivative is forgotten: the projection term doubles.
-        ForgotHalf = "forgot-half" => ("x", Kind::Partial),
+        ForgotHalf = "forgot-half" => ("x", Kind::WrongFormula),
         /// The scale gradient multiplies g by the output (which already contains γ).
-        GammaFromOutput = "gamma-from-output" => ("gamma", Kind::Partial),
+        GammaFromOutput = "gamma-from-output" => ("gamma", Kind::WrongFormula),
         /// The projection term uses a sum over the features instead of a mean.
-        SumInsteadOfMean = "sum-instead-of-mean" => ("x", Kind::Partial),
+        SumInsteadOfMean = "sum-instead-of-mean" => ("x", Kind::WrongFormula),
     }
 }
 

@@ -12,13 +12,13 @@ planted_bugs! {
     /// Mistakes planted in [`MaxPool2d`]'s backward.
     MaxPoolBug {
         /// Where two elements tie for the maximum, each receives the full gradient.
-        TiesToEveryMax = "ties-to-every-max" => ("x", Kind::Partial),
+        TiesToEveryMax = "ties-to-every-max" => ("x", Kind::SharedKink),
         /// The gradient goes to the window's first element, not to its maximum.
-        FirstElement = "first-element" => ("x", Kind::Partial),
+        FirstElement = "first-element" => ("x", Kind::WrongFormula),
         /// The gradient is spread evenly over the window, as for average pooling.
-        SpreadEvenly = "spread-evenly" => ("x", Kind::Partial),
+        SpreadEvenly = "spread-evenly" => ("x", Kind::WrongFormula),
         /// The maximum is looked up in the next window along the row.
-        WrongWindow = "wrong-window" => ("x", Kind::Partial),
+        WrongWindow = "wrong-window" => ("x", Kind::WrongFormula),
     }
 }
 
@@ -30,9 +30,9 @@ planted_bugs! {
         /// The gradient is divided by the window size twice.
         DividedTwice = "divided-twice" => ("x", Kind::Scaled(0.25)),
         /// The backward places windows as if the stride were 1.
-        StrideIgnored = "stride-ignored" => ("x", Kind::Partial),
+        StrideIgnored = "stride-ignored" => ("x", Kind::WrongFormula),
         /// The whole gradient of a window goes to its top-left element.
-        TopLeftOnly = "top-left-only" => ("x", Kind::Partial),
+        TopLeftOnly = "top-left-only" => ("x", Kind::WrongFormula),
     }
 }
 

@@ -12,11 +12,11 @@ planted_bugs! {
     /// Mistakes planted in [`Residual`]'s backward.
     ResidualBug {
         /// The skip connection's gradient is dropped: dx only flows through the branch.
-        ResidualDropped = "residual-dropped" => ("x", Kind::Partial),
+        ResidualDropped = "residual-dropped" => ("x", Kind::WrongFormula),
         /// The skip connection's gradient is added twice.
-        ResidualTwice = "residual-twice" => ("x", Kind::Partial),
+        ResidualTwice = "residual-twice" => ("x", Kind::WrongFormula),
         /// GELU's derivative is taken at its output instead of its input.
-        DerivativeAtOutput = "derivative-at-output" => ("w", Kind::Partial),
+        DerivativeAtOutput = "derivative-at-output" => ("w", Kind::WrongFormula),
         /// The (square) weight gradient is transposed.
         WeightTransposed = "weight-transposed" => ("w", Kind::Transposed),
     }

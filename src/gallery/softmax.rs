@@ -11,11 +11,11 @@ planted_bugs! {
     /// Mistakes planted in [`SoftmaxCrossEntropy`]'s backward.
     SoftmaxBug {
         /// The chain goes through the softmax Jacobian's diagonal only, sᵢ(1 − sᵢ).
-        JacobianDiagonalOnly = "jacobian-diagonal-only" => ("logits", Kind::Partial),
+        JacobianDiagonalOnly = "jacobian-diagonal-only" => ("logits", Kind::WrongFormula),
         /// The loss is a mean over the batch but the backward forgets the 1/N.
         SumNotMean = "sum-not-mean" => ("logits", Kind::Scaled(3.0)),
         /// The one-hot label is subtracted at the next class (index off by one).
-        LabelOffByOne = "label-off-by-one" => ("logits", Kind::Partial),
+        LabelOffByOne = "label-off-by-one" => ("logits", Kind::WrongFormula),
         /// The upstream gradient of the loss is ignored (assumed to be 1).
         UpstreamIgnored = "upstream-ignored" => ("logits", Kind::ScaledAny),
         /// The gradient is written as onehot − softmax.
