@@ -2,7 +2,7 @@
 
 use std::marker::PhantomData;
 
-use super::{affine, c, planted_bugs, tensor, Case, Draw, Kind, Subject};
+use super::{affine, c, planted_bugs, register_generic, tensor, Case, Draw, Kind, Subject};
 use crate::layer::{Args, GenericLayer, Gradients, Signature};
 use crate::scalar::{Real, Scalar};
 use crate::tensor::Tensor;
@@ -235,24 +235,5 @@ impl<R: Real> GenericLayer for Attention<R> {
 }
 
 pub(crate) fn register(out: &mut Vec<Case>) {
-    out.push(Case::new("attention", "f64", true, None, |s| {
-        Subject::F64(Box::new(Attention::<f64>::new(None)), Attention::args(s))
-    }));
-    out.push(Case::new("attention", "f32", true, None, |s| {
-        Subject::F32(Box::new(Attention::<f32>::new(None)), Attention::args(s))
-    }));
-    for &bug in AttentionBug::ALL {
-        out.push(Case::new(
-            "attention",
-            "f64",
-            true,
-            Some(bug.info()),
-            move |s| {
-                Subject::F64(
-                    Box::new(Attention::<f64>::new(Some(bug))),
-                    Attention::args(s),
-                )
-            },
-        ));
-    }
+    register_generic!(out, "attention", Attention(), AttentionBug);
 }

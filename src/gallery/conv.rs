@@ -2,7 +2,7 @@
 
 use std::marker::PhantomData;
 
-use super::{planted_bugs, tensor, Case, Draw, Kind, Subject};
+use super::{planted_bugs, register_generic, tensor, Case, Draw, Kind, Subject};
 use crate::layer::{Args, GenericLayer, Gradients, Signature};
 use crate::scalar::{Real, Scalar};
 use crate::tensor::Tensor;
@@ -214,24 +214,5 @@ impl<R: Real> GenericLayer for Conv2d<R> {
 }
 
 pub(crate) fn register(out: &mut Vec<Case>) {
-    out.push(Case::new("conv2d", "f64", true, None, |s| {
-        Subject::F64(Box::new(Conv2d::<f64>::new(2, 1, None)), Conv2d::args(s))
-    }));
-    out.push(Case::new("conv2d", "f32", true, None, |s| {
-        Subject::F32(Box::new(Conv2d::<f32>::new(2, 1, None)), Conv2d::args(s))
-    }));
-    for &bug in Conv2dBug::ALL {
-        out.push(Case::new(
-            "conv2d",
-            "f64",
-            true,
-            Some(bug.info()),
-            move |s| {
-                Subject::F64(
-                    Box::new(Conv2d::<f64>::new(2, 1, Some(bug))),
-                    Conv2d::args(s),
-                )
-            },
-        ));
-    }
+    register_generic!(out, "conv2d", Conv2d(2, 1), Conv2dBug);
 }

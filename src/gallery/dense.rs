@@ -3,7 +3,7 @@
 use std::cell::RefCell;
 use std::marker::PhantomData;
 
-use super::{affine, planted_bugs, tensor, Case, Draw, Kind, Subject};
+use super::{affine, planted_bugs, register_generic, tensor, Case, Draw, Kind, Subject};
 use crate::layer::{Args, GenericLayer, Gradients, Signature};
 use crate::scalar::{Real, Scalar};
 use crate::tensor::Tensor;
@@ -146,19 +146,5 @@ impl<R: Real> GenericLayer for Dense<R> {
 }
 
 pub(crate) fn register(out: &mut Vec<Case>) {
-    out.push(Case::new("dense", "f64", true, None, |s| {
-        Subject::F64(Box::new(Dense::<f64>::new(None)), Dense::args(s))
-    }));
-    out.push(Case::new("dense", "f32", true, None, |s| {
-        Subject::F32(Box::new(Dense::<f32>::new(None)), Dense::args(s))
-    }));
-    for &bug in DenseBug::ALL {
-        out.push(Case::new(
-            "dense",
-            "f64",
-            true,
-            Some(bug.info()),
-            move |s| Subject::F64(Box::new(Dense::<f64>::new(Some(bug))), Dense::args(s)),
-        ));
-    }
+    register_generic!(out, "dense", Dense(), DenseBug);
 }

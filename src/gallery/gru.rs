@@ -2,7 +2,7 @@
 
 use std::marker::PhantomData;
 
-use super::{affine, planted_bugs, sigmoid, tensor, Case, Draw, Kind, Subject};
+use super::{affine, planted_bugs, register_generic, sigmoid, tensor, Case, Draw, Kind, Subject};
 use crate::layer::{Args, GenericLayer, Gradients, Signature};
 use crate::scalar::{Real, Scalar};
 use crate::tensor::Tensor;
@@ -207,19 +207,5 @@ impl<R: Real> GenericLayer for GruCell<R> {
 }
 
 pub(crate) fn register(out: &mut Vec<Case>) {
-    out.push(Case::new("gru-cell", "f64", true, None, |s| {
-        Subject::F64(Box::new(GruCell::<f64>::new(None)), GruCell::args(s))
-    }));
-    out.push(Case::new("gru-cell", "f32", true, None, |s| {
-        Subject::F32(Box::new(GruCell::<f32>::new(None)), GruCell::args(s))
-    }));
-    for &bug in GruBug::ALL {
-        out.push(Case::new(
-            "gru-cell",
-            "f64",
-            true,
-            Some(bug.info()),
-            move |s| Subject::F64(Box::new(GruCell::<f64>::new(Some(bug))), GruCell::args(s)),
-        ));
-    }
+    register_generic!(out, "gru-cell", GruCell(), GruBug);
 }

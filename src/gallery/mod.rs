@@ -131,6 +131,27 @@ macro_rules! planted_bugs {
 }
 pub(crate) use planted_bugs;
 
+/// Registers a layer generic over its precision: the correct layer in
+/// `f64` and `f32`, and every planted bug in `f64`.
+/// `register_generic!(out, "conv2d", Conv2d(2, 1), Conv2dBug)` builds
+/// `Conv2d::<R>::new(2, 1, bug)` and draws `Conv2d::args(seed)`.
+macro_rules! register_generic {
+    ($out:expr, $name:literal, $layer:ident ( $($pre:expr),* ), $bugs:ident) => {{
+        $out.push(Case::new($name, "f64", true, None, |s| {
+            Subject::F64(Box::new($layer::<f64>::new($($pre,)* None)), $layer::args(s))
+        }));
+        $out.push(Case::new($name, "f32", true, None, |s| {
+            Subject::F32(Box::new($layer::<f32>::new($($pre,)* None)), $layer::args(s))
+        }));
+        for &bug in $bugs::ALL {
+            $out.push(Case::new($name, "f64", true, Some(bug.info()), move |s| {
+                Subject::F64(Box::new($layer::<f64>::new($($pre,)* Some(bug))), $layer::args(s))
+            }));
+        }
+    }};
+}
+pub(crate) use register_generic;
+
 /// The kind of diagnosis a planted bug should get.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub enum Kind {

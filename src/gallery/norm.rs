@@ -4,7 +4,7 @@
 use std::cell::RefCell;
 use std::marker::PhantomData;
 
-use super::{c, planted_bugs, tensor, Case, Draw, Kind, Subject};
+use super::{c, planted_bugs, register_generic, tensor, Case, Draw, Kind, Subject};
 use crate::layer::{Args, GenericLayer, Gradients, Signature};
 use crate::scalar::{Real, Scalar};
 use crate::tensor::Tensor;
@@ -493,59 +493,7 @@ impl<R: Real> GenericLayer for RmsNorm<R> {
 }
 
 pub(crate) fn register(out: &mut Vec<Case>) {
-    out.push(Case::new("layer-norm", "f64", true, None, |s| {
-        Subject::F64(Box::new(LayerNorm::<f64>::new(None)), LayerNorm::args(s))
-    }));
-    out.push(Case::new("layer-norm", "f32", true, None, |s| {
-        Subject::F32(Box::new(LayerNorm::<f32>::new(None)), LayerNorm::args(s))
-    }));
-    for &bug in LayerNormBug::ALL {
-        out.push(Case::new(
-            "layer-norm",
-            "f64",
-            true,
-            Some(bug.info()),
-            move |s| {
-                Subject::F64(
-                    Box::new(LayerNorm::<f64>::new(Some(bug))),
-                    LayerNorm::args(s),
-                )
-            },
-        ));
-    }
-    out.push(Case::new("batch-norm", "f64", true, None, |s| {
-        Subject::F64(Box::new(BatchNorm::<f64>::new(None)), BatchNorm::args(s))
-    }));
-    out.push(Case::new("batch-norm", "f32", true, None, |s| {
-        Subject::F32(Box::new(BatchNorm::<f32>::new(None)), BatchNorm::args(s))
-    }));
-    for &bug in BatchNormBug::ALL {
-        out.push(Case::new(
-            "batch-norm",
-            "f64",
-            true,
-            Some(bug.info()),
-            move |s| {
-                Subject::F64(
-                    Box::new(BatchNorm::<f64>::new(Some(bug))),
-                    BatchNorm::args(s),
-                )
-            },
-        ));
-    }
-    out.push(Case::new("rms-norm", "f64", true, None, |s| {
-        Subject::F64(Box::new(RmsNorm::<f64>::new(None)), RmsNorm::args(s))
-    }));
-    out.push(Case::new("rms-norm", "f32", true, None, |s| {
-        Subject::F32(Box::new(RmsNorm::<f32>::new(None)), RmsNorm::args(s))
-    }));
-    for &bug in RmsNormBug::ALL {
-        out.push(Case::new(
-            "rms-norm",
-            "f64",
-            true,
-            Some(bug.info()),
-            move |s| Subject::F64(Box::new(RmsNorm::<f64>::new(Some(bug))), RmsNorm::args(s)),
-        ));
-    }
+    register_generic!(out, "layer-norm", LayerNorm(), LayerNormBug);
+    register_generic!(out, "batch-norm", BatchNorm(), BatchNormBug);
+    register_generic!(out, "rms-norm", RmsNorm(), RmsNormBug);
 }

@@ -3,7 +3,10 @@
 
 use std::marker::PhantomData;
 
-use super::{affine, gelu, gelu_derivative, planted_bugs, tensor, Case, Draw, Kind, Subject};
+use super::{
+    affine, gelu, gelu_derivative, planted_bugs, register_generic, tensor, Case, Draw, Kind,
+    Subject,
+};
 use crate::layer::{Args, GenericLayer, Gradients, Signature};
 use crate::scalar::{Real, Scalar};
 use crate::tensor::Tensor;
@@ -130,19 +133,5 @@ impl<R: Real> GenericLayer for Residual<R> {
 }
 
 pub(crate) fn register(out: &mut Vec<Case>) {
-    out.push(Case::new("residual", "f64", true, None, |s| {
-        Subject::F64(Box::new(Residual::<f64>::new(None)), Residual::args(s))
-    }));
-    out.push(Case::new("residual", "f32", true, None, |s| {
-        Subject::F32(Box::new(Residual::<f32>::new(None)), Residual::args(s))
-    }));
-    for &bug in ResidualBug::ALL {
-        out.push(Case::new(
-            "residual",
-            "f64",
-            true,
-            Some(bug.info()),
-            move |s| Subject::F64(Box::new(Residual::<f64>::new(Some(bug))), Residual::args(s)),
-        ));
-    }
+    register_generic!(out, "residual", Residual(), ResidualBug);
 }

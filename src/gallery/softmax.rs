@@ -2,7 +2,7 @@
 
 use std::marker::PhantomData;
 
-use super::{c, planted_bugs, tensor, Case, Draw, Kind, Subject};
+use super::{c, planted_bugs, register_generic, tensor, Case, Draw, Kind, Subject};
 use crate::layer::{Args, GenericLayer, Gradients, Signature};
 use crate::scalar::{Real, Scalar};
 use crate::tensor::Tensor;
@@ -144,30 +144,10 @@ impl<R: Real> GenericLayer for SoftmaxCrossEntropy<R> {
 }
 
 pub(crate) fn register(out: &mut Vec<Case>) {
-    out.push(Case::new("softmax-cross-entropy", "f64", true, None, |s| {
-        Subject::F64(
-            Box::new(SoftmaxCrossEntropy::<f64>::new(None)),
-            SoftmaxCrossEntropy::args(s),
-        )
-    }));
-    out.push(Case::new("softmax-cross-entropy", "f32", true, None, |s| {
-        Subject::F32(
-            Box::new(SoftmaxCrossEntropy::<f32>::new(None)),
-            SoftmaxCrossEntropy::args(s),
-        )
-    }));
-    for &bug in SoftmaxBug::ALL {
-        out.push(Case::new(
-            "softmax-cross-entropy",
-            "f64",
-            true,
-            Some(bug.info()),
-            move |s| {
-                Subject::F64(
-                    Box::new(SoftmaxCrossEntropy::<f64>::new(Some(bug))),
-                    SoftmaxCrossEntropy::args(s),
-                )
-            },
-        ));
-    }
+    register_generic!(
+        out,
+        "softmax-cross-entropy",
+        SoftmaxCrossEntropy(),
+        SoftmaxBug
+    );
 }
