@@ -278,15 +278,20 @@ pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> 
         if (k + 1.0).abs() < FACTOR_MATCH {
             return Some(Diagnosis::SignFlipped);
         }
-        return Some(Diagnosis::Scaled {
-            factor: k,
-            culprit: culprit(k, &ev.sizes),
-        });
+        // One significant element fits any factor: name one only when it
+        // is a common culprit, or when several elements agree on it.
+        let named = culprit(k, &ev.sizes);
+        if named.is_some() || smooth.iter().filter(|e| significant(e)).count() > 1 {
+            return Some(Diagnosis::Scaled {
+                factor: k,
+                culprit: named,
+            });
+        }
     }
     if let Some(axes) = transposed_match(&row.shape, grad, el) {
         return Some(Diagnosis::Transposed { axes });
     }
-    if wrong.len() == smooth.len() && wrong.len() > 1 {
+    if wrong.len() == smooth.len() {
         return Some(Diagnosis::WrongValues { of: wrong.len() });
     }
     Some(Diagnosis::Partial {
