@@ -693,7 +693,7 @@ impl Bindings {
     }
 
     /// The size bound to a named dim, if any.
-    #[allow(dead_code)]
+    #[cfg(test)]
     pub(crate) fn get(&self, name: &str) -> Option<usize> {
         self.sizes.get(name).map(|(n, _)| *n)
     }

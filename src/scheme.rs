@@ -81,7 +81,7 @@ pub struct Estimate {
     /// Function evaluations spent.
     pub evals: usize,
     /// The widest step the value relied on (0 for the complex step, whose
-    /// step is imaginary): the reach of the stencil, for the kink test.
+    /// step is imaginary): how far from x the value looked.
     pub step: f64,
     /// `false` when the scheme's truncation error (not its rounding)
     /// exceeds [`INCONCLUSIVE`] of the derivative's size: the reference
