@@ -194,6 +194,7 @@ impl Audit {
 
         let mut numeric = References::new(layer, reference, args, scheme);
         let mut rows = Vec::new();
+        let mut notes = Vec::new();
         let mut diff_index = 0;
         for (slot_index, slot) in sig.slots().into_iter().enumerate() {
             if slot.role == Role::Fixed {
@@ -205,7 +206,10 @@ impl Audit {
                 _ => None,
             };
             diff_index += 1;
-            let estimates = numeric.slot(slot_index, &w, &mut counts);
+            let (estimates, row_scheme, note) = numeric.slot(slot_index, &w, &mut counts);
+            if let Some(note) = note {
+                notes.push(format!("`{}`: {note}", slot.name));
+            }
             let shape = args.all()[slot_index].shape().to_vec();
             let row = self.compare(
                 &slot.name,
@@ -213,7 +217,7 @@ impl Audit {
                 shape,
                 grad.map(|g| g.map(|v| v.as_f64())),
                 estimates,
-                scheme,
+                row_scheme,
                 L::Real::EPS,
                 &mut |probe| match probe {
                     Probe::One(j) => numeric.kink(slot_index, j, &w, &mut counts),
@@ -238,6 +242,7 @@ impl Audit {
             forward_evals: counts.forward,
             backward_evals: counts.backward,
             kinks_fail: s.kinks_fail,
+            notes,
         })
     }
 
@@ -547,7 +552,17 @@ impl<'a, L: Layer + ?Sized> References<'a, L> {
     }
 
     /// Estimates for every element of one argument tensor.
-    fn slot(&mut self, slot: usize, w: &[Vec<f64>], counts: &mut Counts) -> Vec<Estimate> {
+    ///
+    /// Also returns the scheme that produced them: a generic forward that
+    /// leaves the `Scalar` path (`to_f64()`, `as`) shows no complex-step
+    /// derivative at all; when real differences disagree, the tensor falls
+    /// back to Ridders' method in `f64` and a note says why.
+    fn slot(
+        &mut self,
+        slot: usize,
+        w: &[Vec<f64>],
+        counts: &mut Counts,
+    ) -> (Vec<Estimate>, Scheme, Option<String>) {
         match self {
             References::Own {
                 layer,
@@ -555,13 +570,39 @@ impl<'a, L: Layer + ?Sized> References<'a, L> {
                 scheme,
             } => {
                 let forward = |a: &Args<L::Real>| layer.forward(a);
-                estimate_all(work, &forward, w, slot, *scheme, counts)
+                let est = estimate_all(work, &forward, w, slot, *scheme, counts);
+                (est, *scheme, None)
             }
             References::Generic {
                 forward,
                 complex: Some(work),
+                real,
                 ..
-            } => complex_step_all(*forward, work, w, slot, counts),
+            } => {
+                let est = complex_step_all(*forward, work, w, slot, counts);
+                let silent =
+                    !est.is_empty() && est.iter().all(|e| e.value == 0.0 && e.scale == 0.0);
+                if silent {
+                    let f = |a: &Args<f64>| forward.forward_f64(a);
+                    let real_est = estimate_all(real, &f, w, slot, Scheme::Ridders, counts);
+                    if real_est
+                        .iter()
+                        .any(|e| e.conclusive && e.value.abs() > 10.0 * e.error)
+                    {
+                        return (
+                            real_est,
+                            Scheme::Ridders,
+                            Some(
+                                "the complex step saw no derivative although real differences do: \
+                                 the generic forward leaves the Scalar path (to_f64, `as`, a real-only \
+                                 function); Ridders' method in f64 was used instead"
+                                    .to_string(),
+                            ),
+                        );
+                    }
+                }
+                (est, Scheme::ComplexStep, None)
+            }
             References::Generic {
                 forward,
                 real,
@@ -569,7 +610,8 @@ impl<'a, L: Layer + ?Sized> References<'a, L> {
                 ..
             } => {
                 let f = |a: &Args<f64>| forward.forward_f64(a);
-                estimate_all(real, &f, w, slot, *scheme, counts)
+                let est = estimate_all(real, &f, w, slot, *scheme, counts);
+                (est, *scheme, None)
             }
         }
     }

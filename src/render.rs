@@ -146,6 +146,9 @@ pub fn table(report: &Report, style: &Style) -> String {
         report.forward_evals,
         report.backward_evals
     );
+    for note in &report.notes {
+        let _ = writeln!(out, "note: {note}");
+    }
     out
 }
 

@@ -34,6 +34,10 @@ pub struct Report {
     /// Whether elements at a kink that the analytic value does not fit fail
     /// the audit.
     pub kinks_fail: bool,
+    /// Things the audit noticed about the layer itself, e.g. a generic
+    /// forward that drops the complex step.
+    #[serde(default)]
+    pub notes: Vec<String>,
 }
 
 /// The finding for one input or parameter tensor.

@@ -324,3 +324,39 @@ fn ridders_error_bar_includes_the_rounding_of_large_outputs() {
         assert_eq!(r.rows[0].scheme, plumbline::Scheme::Ridders);
     }
 }
+
+/// A generic forward that leaves the `Scalar` path: it computes tanh on an
+/// `f64` copy, which drops the complex-step derivative.
+struct LeakyTanh;
+
+impl GenericLayer for LeakyTanh {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "n").output("y", "n")
+    }
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        vec![a
+            .input(0)
+            .map(|x| T::from(x.to_f64().unwrap_or(f64::NAN).tanh()).unwrap_or(T::nan()))]
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        Tanh.backward(a, up)
+    }
+}
+
+#[test]
+fn a_forward_that_drops_the_complex_step_falls_back_to_ridders_with_a_note() {
+    let x = common::tensor::<f64>(&[5], 3);
+    let r = Audit::new()
+        .run(&LeakyTanh, &Args::new(vec![x.clone()], vec![]))
+        .unwrap();
+    assert!(r.passed(), "{r}");
+    assert_eq!(r.rows[0].scheme, plumbline::Scheme::Ridders);
+    assert_eq!(r.notes.len(), 1, "{r}");
+    assert!(r.to_string().contains("leaves the Scalar path"), "{r}");
+    // A forward that stays on the path gets no note.
+    let r = Audit::new()
+        .run(&Tanh, &Args::new(vec![x], vec![]))
+        .unwrap();
+    assert!(r.notes.is_empty() && r.rows[0].scheme == plumbline::Scheme::ComplexStep);
+}
