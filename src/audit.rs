@@ -49,6 +49,9 @@ pub struct Settings {
     pub kinks_fail: bool,
     /// Name shown in the report instead of the layer's type name.
     pub name: Option<String>,
+    /// Check at most this many elements per tensor, drawn at random from
+    /// the seed (default `None`: every element).
+    pub max_elements: Option<usize>,
 }
 
 impl Default for Settings {
@@ -59,6 +62,7 @@ impl Default for Settings {
             tolerance: Tolerance::default(),
             kinks_fail: false,
             name: None,
+            max_elements: None,
         }
     }
 }
@@ -129,6 +133,21 @@ impl Audit {
     #[must_use]
     pub fn kinks_fail(mut self, yes: bool) -> Self {
         self.settings.kinks_fail = yes;
+        self
+    }
+
+    /// Checks at most `n` elements of each tensor, a random subset drawn
+    /// from the seed (every element of smaller tensors). An audit costs one
+    /// to a few dozen forwards per checked element, so this bounds the cost
+    /// for large layers; the report says how many were checked.
+    ///
+    /// ```
+    /// use plumbline::Audit;
+    /// assert_eq!(Audit::new().max_elements(64).settings().max_elements, Some(64));
+    /// ```
+    #[must_use]
+    pub fn max_elements(mut self, n: usize) -> Self {
+        self.settings.max_elements = Some(n);
         self
     }
 
@@ -206,7 +225,9 @@ impl Audit {
                 _ => None,
             };
             diff_index += 1;
-            let (estimates, row_scheme, note) = numeric.slot(slot_index, &w, &mut counts);
+            let len = args.all()[slot_index].len();
+            let indices = sample(len, s.max_elements, s.seed, slot_index);
+            let (estimates, row_scheme, note) = numeric.slot(slot_index, &indices, &w, &mut counts);
             if let Some(note) = note {
                 notes.push(format!("`{}`: {note}", slot.name));
             }
@@ -216,6 +237,7 @@ impl Audit {
                 slot.role,
                 shape,
                 grad.map(|g| g.map(|v| v.as_f64())),
+                &indices,
                 estimates,
                 row_scheme,
                 L::Real::EPS,
@@ -253,6 +275,7 @@ impl Audit {
         role: Role,
         shape: Vec<usize>,
         grad: Option<Tensor<f64>>,
+        indices: &[usize],
         estimates: Vec<Estimate>,
         scheme: Scheme,
         layer_eps: f64,
@@ -262,7 +285,7 @@ impl Audit {
         let tol = &self.settings.tolerance;
         let same_shape = grad.as_ref().is_some_and(|g| g.shape() == shape.as_slice());
         let mut elements = Vec::with_capacity(estimates.len());
-        for (j, est) in estimates.iter().enumerate() {
+        for (&j, est) in indices.iter().zip(&estimates) {
             let analytic = match (&grad, same_shape) {
                 (Some(g), true) => g.data()[j],
                 _ => f64::NAN,
@@ -306,6 +329,7 @@ impl Audit {
                 }
             }
             elements.push(ElementCheck {
+                index: j,
                 analytic,
                 numeric: est.value,
                 error: est.error,
@@ -322,21 +346,20 @@ impl Audit {
         // an element that matched the reference by the luck of a tie is at a
         // kink all the same and belongs in the joint move.
         if elements.iter().any(|e| e.status.is_kink()) {
-            for (j, e) in elements.iter_mut().enumerate() {
+            for e in elements.iter_mut() {
                 if e.status == ElementStatus::Agrees {
-                    if let Some(probe) = kink(Probe::One(j)) {
+                    if let Some(probe) = kink(Probe::One(e.index)) {
                         e.status = ElementStatus::Kink { probe, fits: true };
                     }
                 }
             }
         }
-        let kinked: Vec<usize> = (0..elements.len())
-            .filter(|&j| elements[j].status.is_kink())
-            .collect();
+        let kinked: Vec<&ElementCheck> = elements.iter().filter(|e| e.status.is_kink()).collect();
         let joint_kink = if kinked.len() >= 2 {
-            kink(Probe::Group(&kinked)).and_then(|p| {
-                let sum: f64 = kinked.iter().map(|&j| elements[j].analytic).sum();
-                let slack: f64 = kinked.iter().map(|&j| elements[j].bound).sum::<f64>() + p.noise;
+            let group: Vec<usize> = kinked.iter().map(|e| e.index).collect();
+            kink(Probe::Group(&group)).and_then(|p| {
+                let sum: f64 = kinked.iter().map(|e| e.analytic).sum();
+                let slack: f64 = kinked.iter().map(|e| e.bound).sum::<f64>() + p.noise;
                 let (lo, hi) = (p.left.min(p.right) - slack, p.left.max(p.right) + slack);
                 (!(lo..=hi).contains(&sum)).then_some(JointKink {
                     elements: kinked.len(),
@@ -412,8 +435,9 @@ impl Audit {
             checked: elements.len(),
             disagreeing,
             kinks,
+            of: shape.iter().product(),
             worst: worst.map(|(j, _)| Worst {
-                index: Index::from_flat(&shape, j),
+                index: Index::from_flat(&shape, elements[j].index),
                 analytic: elements[j].analytic,
                 numeric: elements[j].numeric,
                 bound: elements[j].bound,
@@ -429,6 +453,26 @@ impl Audit {
         row.diagnosis = diagnosis::diagnose(&row, grad.as_ref(), evidence);
         row
     }
+}
+
+/// The flat positions to check in a tensor of `len` elements: all of them,
+/// or `max` drawn without replacement (seeded by the audit's seed and the
+/// tensor's position), in ascending order.
+fn sample(len: usize, max: Option<usize>, seed: u64, slot: usize) -> Vec<usize> {
+    let mut all: Vec<usize> = (0..len).collect();
+    let Some(max) = max.filter(|&m| m < len) else {
+        return all;
+    };
+    let mut rng = rand::rngs::StdRng::seed_from_u64(
+        seed ^ (slot as u64 + 1).wrapping_mul(0x9E37_79B9_7F4A_7C15),
+    );
+    for k in 0..max {
+        let pick = rng.random_range(k..len);
+        all.swap(k, pick);
+    }
+    all.truncate(max);
+    all.sort_unstable();
+    all
 }
 
 /// |a − n| / max(|a|, |n|), with 0/0 = 0 and NaN for non-finite input.
@@ -560,6 +604,7 @@ impl<'a, L: Layer + ?Sized> References<'a, L> {
     fn slot(
         &mut self,
         slot: usize,
+        indices: &[usize],
         w: &[Vec<f64>],
         counts: &mut Counts,
     ) -> (Vec<Estimate>, Scheme, Option<String>) {
@@ -570,7 +615,7 @@ impl<'a, L: Layer + ?Sized> References<'a, L> {
                 scheme,
             } => {
                 let forward = |a: &Args<L::Real>| layer.forward(a);
-                let est = estimate_all(work, &forward, w, slot, *scheme, counts);
+                let est = estimate_all(work, &forward, w, slot, indices, *scheme, counts);
                 (est, *scheme, None)
             }
             References::Generic {
@@ -579,12 +624,13 @@ impl<'a, L: Layer + ?Sized> References<'a, L> {
                 real,
                 ..
             } => {
-                let est = complex_step_all(*forward, work, w, slot, counts);
+                let est = complex_step_all(*forward, work, w, slot, indices, counts);
                 let silent =
                     !est.is_empty() && est.iter().all(|e| e.value == 0.0 && e.scale == 0.0);
                 if silent {
                     let f = |a: &Args<f64>| forward.forward_f64(a);
-                    let real_est = estimate_all(real, &f, w, slot, Scheme::Ridders, counts);
+                    let real_est =
+                        estimate_all(real, &f, w, slot, indices, Scheme::Ridders, counts);
                     if real_est
                         .iter()
                         .any(|e| e.conclusive && e.value.abs() > 10.0 * e.error)
@@ -610,7 +656,7 @@ impl<'a, L: Layer + ?Sized> References<'a, L> {
                 ..
             } => {
                 let f = |a: &Args<f64>| forward.forward_f64(a);
-                let est = estimate_all(real, &f, w, slot, *scheme, counts);
+                let est = estimate_all(real, &f, w, slot, indices, *scheme, counts);
                 (est, *scheme, None)
             }
         }
@@ -676,12 +722,12 @@ fn complex_step_all(
     work: &mut Args<ComplexStep<f64>>,
     w: &[Vec<f64>],
     slot: usize,
+    indices: &[usize],
     counts: &mut Counts,
 ) -> Vec<Estimate> {
     let h = COMPLEX_STEP;
-    let n = work.all()[slot].len();
-    let mut out = Vec::with_capacity(n);
-    for j in 0..n {
+    let mut out = Vec::with_capacity(indices.len());
+    for &j in indices {
         work.all_mut()[slot].data_mut()[j].im = h;
         let y = forward.forward_complex(work);
         work.all_mut()[slot].data_mut()[j].im = 0.0;
@@ -721,13 +767,13 @@ fn estimate_all<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
     forward: &F,
     w: &[Vec<f64>],
     slot: usize,
+    indices: &[usize],
     scheme: Scheme,
     counts: &mut Counts,
 ) -> Vec<Estimate> {
-    let n = work.all()[slot].len();
     let mut line = ArgLine::new(work, forward, w, slot);
-    let mut out = Vec::with_capacity(n);
-    for j in 0..n {
+    let mut out = Vec::with_capacity(indices.len());
+    for &j in indices {
         line.select(j);
         let est = match scheme {
             Scheme::Central => scheme::central(&mut line),

@@ -218,9 +218,9 @@ pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> 
         });
     }
     let el = &row.elements;
-    if let Some(j) = el.iter().position(|e| !e.numeric.is_finite()) {
+    if let Some(e) = el.iter().find(|e| !e.numeric.is_finite()) {
         return Some(Diagnosis::NonFinite {
-            place: format!("reference at {}", Index::from_flat(&row.shape, j)),
+            place: format!("reference at {}", Index::from_flat(&row.shape, e.index)),
         });
     }
     if grad.shape() != row.shape.as_slice() {
@@ -259,9 +259,10 @@ pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> 
             outside,
         });
     }
-    if wrong
+    if el
         .iter()
-        .all(|&j| el[j].status == ElementStatus::Inconclusive)
+        .filter(|e| e.status.is_failure())
+        .all(|e| e.status == ElementStatus::Inconclusive)
     {
         return Some(Diagnosis::Inconclusive { count: wrong.len() });
     }
@@ -357,7 +358,7 @@ fn transposed_match(
     grad: &Tensor<f64>,
     el: &[ElementCheck],
 ) -> Option<(usize, usize)> {
-    if grad.len() != el.len() || el.len() < 2 {
+    if grad.len() != shape.iter().product::<usize>() || el.len() < 2 {
         return None;
     }
     let r = shape.len();
@@ -368,11 +369,11 @@ fn transposed_match(
             if swapped != grad.shape() || (shape == grad.shape() && shape[p] < 2) {
                 continue;
             }
-            let ok = el.iter().enumerate().all(|(j, e)| {
+            let ok = el.iter().all(|e| {
                 if e.status.is_kink() {
                     return true;
                 }
-                let mut ix = Index::from_flat(shape, j).0;
+                let mut ix = Index::from_flat(shape, e.index).0;
                 ix.swap(p, q);
                 grad.get(&ix)
                     .is_some_and(|a| (a - e.numeric).abs() <= e.bound)

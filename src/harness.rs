@@ -17,7 +17,7 @@ use crate::report::Report;
 /// * `assert_backward!(layer, &args)`
 /// * `assert_backward!(layer, &args, key = value, ...)`: each `key = value`
 ///   calls the [`Audit`] setter of that name (`seed`, `scheme`, `margin`,
-///   `epsilon`, `max_relative`, `kinks_fail`, `name`), so the macro accepts
+///   `epsilon`, `max_relative`, `kinks_fail`, `max_elements`, `name`), so the macro accepts
 ///   every builder option there is.
 ///
 /// Settings start from the `PLUMBLINE_*` environment variables; code

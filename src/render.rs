@@ -64,7 +64,11 @@ fn cells(rank: usize, r: &Row) -> [String; COLS] {
         r.name.clone(),
         r.role.to_string(),
         shape_string(&r.shape),
-        r.checked.to_string(),
+        if r.of > r.checked {
+            format!("{}/{}", r.checked, r.of)
+        } else {
+            r.checked.to_string()
+        },
         r.disagreeing.to_string(),
         at,
         a,

@@ -55,6 +55,9 @@ pub struct Row {
     pub scheme: Scheme,
     /// Elements compared.
     pub checked: usize,
+    /// Elements in the tensor (more than `checked` when
+    /// [`Audit::max_elements`](crate::Audit::max_elements) sampled them).
+    pub of: usize,
     /// Elements that disagree (or are not finite).
     pub disagreeing: usize,
     /// Elements at a non-differentiable point.
@@ -144,6 +147,8 @@ impl fmt::Display for Verdict {
 /// One element's comparison.
 #[derive(Clone, Debug, PartialEq)]
 pub struct ElementCheck {
+    /// Its flat (row-major) position in the tensor.
+    pub index: usize,
     /// The backward's value (NaN when no gradient of the right shape exists).
     pub analytic: f64,
     /// The reference value.

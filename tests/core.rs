@@ -254,3 +254,59 @@ fn narrow_tables_keep_verdict_and_diagnosis_and_fit_the_width() {
         "{text}"
     );
 }
+
+#[test]
+fn sampling_bounds_the_cost_and_still_names_the_bug() {
+    // w has 24 × 24 = 576 elements; check 40 of each tensor.
+    let args = dense_args::<f64>(6, 24, 24, 3);
+    let audit = Audit::new().max_elements(40);
+    let r = audit
+        .run(&Dense::<f64>::new(DenseBug::None), &args)
+        .unwrap();
+    assert!(r.passed(), "{r}");
+    let w = r.row("w").unwrap();
+    assert_eq!((w.checked, w.of), (40, 576));
+    assert!(r.to_string().contains("40/576"), "{r}");
+    let b = r.row("b").unwrap();
+    assert_eq!((b.checked, b.of), (24, 24)); // small tensors are checked whole
+    let full = Audit::new()
+        .run(&Dense::<f64>::new(DenseBug::None), &args)
+        .unwrap();
+    assert!(
+        r.forward_evals * 5 < full.forward_evals,
+        "{} vs {}",
+        r.forward_evals,
+        full.forward_evals
+    );
+
+    for (bug, name, want) in [
+        (DenseBug::SignFlip, "w", "sign flipped"),
+        (
+            DenseBug::TransposedSquare,
+            "w",
+            "transposed (axes 0 and 1 swapped)",
+        ),
+        (DenseBug::MeanNotSum, "x", "scaled by 1/N (N = batch = 6)"),
+    ] {
+        let r = audit.run(&Dense::<f64>::new(bug), &args).unwrap();
+        assert_eq!(r.rows[0].name, name, "{r}");
+        assert_eq!(
+            r.rows[0].diagnosis.as_ref().unwrap().to_string(),
+            want,
+            "{r}"
+        );
+    }
+    // The subset depends only on the seed.
+    let again = audit
+        .run(&Dense::<f64>::new(DenseBug::None), &args)
+        .unwrap();
+    let picks = |r: &plumbline::Report| -> Vec<usize> {
+        r.row("w")
+            .unwrap()
+            .elements
+            .iter()
+            .map(|e| e.index)
+            .collect()
+    };
+    assert_eq!(picks(&r), picks(&again));
+}
