@@ -22,6 +22,8 @@ pub const MARGIN_FACTOR_VAR: &str = "PLUMBLINE_MARGIN_FACTOR";
 pub const SCHEME_VAR: &str = "PLUMBLINE_SCHEME";
 /// Default for failing elements at a kink.
 pub const KINKS_FAIL_VAR: &str = "PLUMBLINE_KINKS_FAIL";
+/// Default cap on the elements checked per tensor.
+pub const MAX_ELEMENTS_VAR: &str = "PLUMBLINE_MAX_ELEMENTS";
 /// Directory for JSON and Markdown reports.
 pub const REPORT_DIR_VAR: &str = "PLUMBLINE_REPORT_DIR";
 /// What each audit prints to standard output.
@@ -99,6 +101,9 @@ pub struct Environment {
     pub scheme: Option<Scheme>,
     /// `PLUMBLINE_KINKS_FAIL`: default for failing kinks; code wins.
     pub kinks_fail: Option<bool>,
+    /// `PLUMBLINE_MAX_ELEMENTS`: default cap on the elements checked per
+    /// tensor; code `.max_elements(..)` wins.
+    pub max_elements: Option<usize>,
     /// `PLUMBLINE_REPORT_DIR`: write a JSON report and a Markdown summary
     /// of every audit here.
     pub report_dir: Option<PathBuf>,
@@ -151,6 +156,7 @@ impl Environment {
     /// | `PLUMBLINE_MARGIN_FACTOR` | positive number | `1` | **scales every bound**, also those set in code (`< 1` stricter) |
     /// | `PLUMBLINE_SCHEME` | `complex-step`, `ridders`, `central` | per layer | code `.scheme(..)` wins |
     /// | `PLUMBLINE_KINKS_FAIL` | `1`/`0`, `true`/`false`, `yes`/`no`, `on`/`off` | `false` | code `.kinks_fail(..)` wins |
+    /// | `PLUMBLINE_MAX_ELEMENTS` | positive integer | every element | code `.max_elements(..)` wins |
     /// | `PLUMBLINE_REPORT_DIR` | a directory (created if missing) | none | writes `<test>--<layer>.json` and `.md` per audit |
     /// | `PLUMBLINE_FORMAT` | `none`, `table`, `markdown`, `json` | `none` | what each audit prints to stdout |
     /// | `PLUMBLINE_COLOR` | `auto`, `always`, `never` | `auto` | `auto`: colour only on a terminal, not with `NO_COLOR` or `TERM=dumb`; `CLICOLOR_FORCE` forces |
@@ -224,6 +230,15 @@ impl Environment {
                 })?,
             );
         }
+        if let Some(v) = get(MAX_ELEMENTS_VAR) {
+            env.max_elements = Some(
+                v.trim()
+                    .parse::<usize>()
+                    .ok()
+                    .filter(|&n| n > 0)
+                    .ok_or_else(|| bad(MAX_ELEMENTS_VAR, &v, "expected a positive integer"))?,
+            );
+        }
         if let Some(v) = get(REPORT_DIR_VAR) {
             env.report_dir = Some(PathBuf::from(v));
         }
@@ -252,6 +267,7 @@ impl Environment {
         }
         s.scheme = self.scheme.or(s.scheme);
         s.kinks_fail = self.kinks_fail.unwrap_or(s.kinks_fail);
+        s.max_elements = self.max_elements.or(s.max_elements);
         s
     }
 

@@ -115,7 +115,7 @@ pub use complex_step::{complex_step_derivative, ComplexStep};
 pub use diagnosis::Diagnosis;
 pub use env::{
     Environment, PrintFormat, COLOR_VAR, FORMAT_VAR, KINKS_FAIL_VAR, MARGIN_FACTOR_VAR, MARGIN_VAR,
-    REPORT_DIR_VAR, SCHEME_VAR, SEED_VAR,
+    MAX_ELEMENTS_VAR, REPORT_DIR_VAR, SCHEME_VAR, SEED_VAR,
 };
 pub use error::Error;
 #[doc(hidden)]

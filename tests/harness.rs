@@ -147,6 +147,7 @@ fn every_variable_parses() {
         ("PLUMBLINE_REPORT_DIR", "target/audits"),
         ("PLUMBLINE_FORMAT", "markdown"),
         ("PLUMBLINE_COLOR", "never"),
+        ("PLUMBLINE_MAX_ELEMENTS", "32"),
     ]))
     .unwrap();
     assert_eq!(
@@ -157,6 +158,7 @@ fn every_variable_parses() {
             margin_factor: Some(0.5),
             scheme: Some(Scheme::Ridders),
             kinks_fail: Some(true),
+            max_elements: Some(32),
             report_dir: Some("target/audits".into()),
             format: PrintFormat::Markdown,
             color: ColorChoice::Never,
@@ -179,6 +181,8 @@ fn invalid_values_name_the_variable() {
         ("PLUMBLINE_MARGIN_FACTOR", "inf"),
         ("PLUMBLINE_SCHEME", "forward"),
         ("PLUMBLINE_KINKS_FAIL", "maybe"),
+        ("PLUMBLINE_MAX_ELEMENTS", "0"),
+        ("PLUMBLINE_MAX_ELEMENTS", "many"),
         ("PLUMBLINE_FORMAT", "xml"),
         ("PLUMBLINE_COLOR", "sometimes"),
     ] {
@@ -418,4 +422,14 @@ fn exact_text_at_a_width() {
         .skip(1)
         .take(4)
         .all(|l| l.chars().count() <= 130));
+}
+
+#[test]
+fn max_elements_from_the_environment_is_a_default_code_overrides() {
+    let env = Environment::from_lookup(lookup(&[("PLUMBLINE_MAX_ELEMENTS", "16")])).unwrap();
+    assert_eq!(env.audit(|a| a).settings().max_elements, Some(16));
+    assert_eq!(
+        env.audit(|a| a.max_elements(4)).settings().max_elements,
+        Some(4)
+    );
 }
