@@ -338,22 +338,22 @@ impl Audit {
                 status,
             });
         }
-        // Several elements at kinks (max-pool ties, ReLUs at 0) are also
-        // moved together: the analytic values must add up to a value between
-        // the joint one-sided derivatives. Ties routed to every maximum fit
-        // one by one but not together.
         // Once a tensor has a kink, its agreeing elements are probed too:
         // an element that matched the reference by the luck of a tie is at a
-        // kink all the same and belongs in the joint move.
+        // kink all the same and belongs in the joint move below.
         if elements.iter().any(|e| e.status.is_kink()) {
             for e in elements.iter_mut() {
                 if e.status == ElementStatus::Agrees {
-                    if let Some(probe) = kink(Probe::One(e.index)) {
+                    if let Some(probe) = kink(Probe::One(e.index)).filter(|p| p.at_point) {
                         e.status = ElementStatus::Kink { probe, fits: true };
                     }
                 }
             }
         }
+        // Several elements at kinks (max-pool ties, ReLUs at 0) are also
+        // moved together: the analytic values must add up to a value between
+        // the joint one-sided derivatives. Ties routed to every maximum fit
+        // one by one but not together.
         let kinked: Vec<&ElementCheck> = elements.iter().filter(|e| e.status.is_kink()).collect();
         let joint_kink = if kinked.len() >= 2 {
             let group: Vec<usize> = kinked.iter().map(|e| e.index).collect();

@@ -237,6 +237,14 @@ struct Kinky {
     ties_to_both: bool,
 }
 
+impl Kinky {
+    /// Valid conventions everywhere.
+    const CORRECT: Kinky = Kinky {
+        abs_at_zero: 0.0,
+        ties_to_both: false,
+    };
+}
+
 impl GenericLayer for Kinky {
     type Real = f64;
     fn signature(&self) -> Signature {
@@ -301,15 +309,7 @@ fn kinks_are_listed_apart_and_do_not_fail() {
     let x = Tensor::new(vec![3], vec![0.0, 0.5, -0.5]).unwrap();
     let p = Tensor::new(vec![2, 2], vec![0.5, 0.5, -1.0, 1.0]).unwrap();
     let args = Args::new(vec![x, p], vec![]);
-    let r = Audit::new()
-        .run(
-            &Kinky {
-                abs_at_zero: 0.0,
-                ties_to_both: false,
-            },
-            &args,
-        )
-        .unwrap();
+    let r = Audit::new().run(&Kinky::CORRECT, &args).unwrap();
     assert!(r.passed(), "{r}");
     // relu + |x| at 0: one-sided slopes −1 and 2; the analytic 0 fits.
     assert_eq!(
@@ -376,15 +376,7 @@ fn max_pool_ties_routed_to_every_maximum_are_caught_jointly() {
         "{r}"
     );
     // Routed to one maximum, the same ties pass.
-    let r = Audit::new()
-        .run(
-            &Kinky {
-                abs_at_zero: 0.0,
-                ties_to_both: false,
-            },
-            &args,
-        )
-        .unwrap();
+    let r = Audit::new().run(&Kinky::CORRECT, &args).unwrap();
     assert!(r.passed(), "{r}");
 }
 
@@ -392,16 +384,7 @@ fn max_pool_ties_routed_to_every_maximum_are_caught_jointly() {
 fn correct_kinky_layers_never_get_a_failing_diagnosis() {
     for seed in 0..300 {
         let args = grid_args(seed, 5, 3);
-        let r = Audit::new()
-            .seed(seed)
-            .run(
-                &Kinky {
-                    abs_at_zero: 0.0,
-                    ties_to_both: false,
-                },
-                &args,
-            )
-            .unwrap();
+        let r = Audit::new().seed(seed).run(&Kinky::CORRECT, &args).unwrap();
         assert!(r.passed(), "seed {seed}\n{r}");
         for row in &r.rows {
             assert!(
@@ -460,7 +443,7 @@ proptest::proptest! {
         let x = Tensor::new(vec![xs.len()], xs.iter().map(|&v| f64::from(v) * 0.5).collect()).unwrap();
         let pairs = ps.len() / 2;
         let p = Tensor::new(vec![pairs, 2], ps[..2 * pairs].iter().map(|&v| f64::from(v) * 0.5).collect()).unwrap();
-        let r = Audit::new().seed(seed).run(&Kinky { abs_at_zero: 0.0, ties_to_both: false }, &Args::new(vec![x, p], vec![])).unwrap();
+        let r = Audit::new().seed(seed).run(&Kinky::CORRECT, &Args::new(vec![x, p], vec![])).unwrap();
         proptest::prop_assert!(r.passed(), "{}", r);
         for row in &r.rows {
             proptest::prop_assert!(row.diagnosis.as_ref().is_none_or(|d| d.is_informational()), "{}", r);
