@@ -35,14 +35,14 @@ fn audits(c: &mut Criterion) {
 fn schemes(c: &mut Criterion) {
     let f = |x: f64| x.exp() / (x.sin().powi(3) + x.cos().powi(3)).sqrt();
     c.bench_function("scalar/central_difference", |b| {
-        b.iter(|| plumbline::central_difference(f, black_box(1.5)))
+        b.iter(|| plumbline::scheme::central_difference(f, black_box(1.5)))
     });
     c.bench_function("scalar/ridders_derivative", |b| {
-        b.iter(|| plumbline::ridders_derivative(f, black_box(1.5), 0.1))
+        b.iter(|| plumbline::scheme::ridders_derivative(f, black_box(1.5), 0.1))
     });
     c.bench_function("scalar/complex_step_derivative", |b| {
         b.iter(|| {
-            plumbline::complex_step_derivative(
+            plumbline::scalar::complex_step_derivative(
                 |z| {
                     use num_traits::Float;
                     z.exp() / (z.sin().powi(3) + z.cos().powi(3)).sqrt()

@@ -18,7 +18,8 @@
 use std::path::PathBuf;
 
 use plumbline::gallery::{judge, registry, Subject};
-use plumbline::{Args, Audit, Layer, Real, Role, Tensor};
+use plumbline::report::Role;
+use plumbline::{Args, Audit, Forward, Real, Tensor};
 use rand::{RngExt, SeedableRng};
 
 /// The baseline's step and tolerances.
@@ -45,7 +46,7 @@ fn projected<R: Real>(ys: &[Tensor<R>], w: &[Vec<R>]) -> R {
 }
 
 /// Fixed-step central differences with fixed tolerances.
-fn baseline<R: Real>(layer: &dyn Layer<Real = R>, args: &Args<R>, seed: u64) -> Run {
+fn baseline<R: Real>(layer: &dyn Forward<Real = R>, args: &Args<R>, seed: u64) -> Run {
     let mut rng = rand::rngs::StdRng::seed_from_u64(seed);
     let y0 = layer.forward(args);
     let w: Vec<Vec<R>> = y0
@@ -75,8 +76,8 @@ fn baseline<R: Real>(layer: &dyn Layer<Real = R>, args: &Args<R>, seed: u64) -> 
     let h = R::from_f64(STEP);
     let two_h = R::from_f64(2.0 * STEP);
     let mut k = 0;
-    for (slot_index, slot) in sig.slots().into_iter().enumerate() {
-        if slot.role == Role::Fixed {
+    for (slot_index, (_, role)) in sig.arguments().enumerate() {
+        if role == Role::Fixed {
             continue;
         }
         let grad = grads.get(k);

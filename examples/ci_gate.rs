@@ -18,12 +18,13 @@
 
 use std::process::ExitCode;
 
-use plumbline::{Args, Environment, GenericLayer, Gradients, Scalar, Signature, Tensor};
+use plumbline::env::Environment;
+use plumbline::{Args, GenericForward, Gradients, Layer, Scalar, Signature, Tensor};
 
 /// Sensor calibration: readings·gain + offset, per sensor.
 struct Calibrate;
 
-impl GenericLayer for Calibrate {
+impl Layer for Calibrate {
     type Real = f64;
     fn signature(&self) -> Signature {
         Signature::new()
@@ -31,13 +32,6 @@ impl GenericLayer for Calibrate {
             .param("gain", "sensor")
             .param("offset", "sensor")
             .output("calibrated", "hive, sensor")
-    }
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, g, o) = (a.input(0), a.param(0), a.param(1));
-        let k = x.shape()[1];
-        vec![Tensor::from_fn(x.shape().to_vec(), |ix| {
-            x.data()[ix[0] * k + ix[1]] * g.data()[ix[1]] + o.data()[ix[1]]
-        })]
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         let (x, g, u) = (a.input(0), a.param(0), &up[0]);
@@ -55,28 +49,27 @@ impl GenericLayer for Calibrate {
     }
 }
 
+impl GenericForward for Calibrate {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, g, o) = (a.input(0), a.param(0), a.param(1));
+        let k = x.shape()[1];
+        vec![Tensor::from_fn(x.shape().to_vec(), |ix| {
+            x.data()[ix[0] * k + ix[1]] * g.data()[ix[1]] + o.data()[ix[1]]
+        })]
+    }
+}
+
 /// Health score per hive: softplus of a weighted sum of the calibrated
 /// sensors, so the score is positive.
 struct Health;
 
-impl GenericLayer for Health {
+impl Layer for Health {
     type Real = f64;
     fn signature(&self) -> Signature {
         Signature::new()
             .input("calibrated", "hive, sensor")
             .param("weight", "sensor")
             .output("health", "hive")
-    }
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, w) = (a.input(0), a.param(0));
-        let (n, k) = (x.shape()[0], x.shape()[1]);
-        vec![Tensor::from_fn(vec![n], |ix| {
-            let mut z = T::zero();
-            for j in 0..k {
-                z += w.data()[j] * x.data()[ix[0] * k + j];
-            }
-            (T::one() + z.exp()).ln()
-        })]
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         let (x, w, u) = (a.input(0), a.param(0), &up[0]);
@@ -93,6 +86,20 @@ impl GenericLayer for Health {
             (0..n).map(|h| dz[h] * x.data()[h * k + ix[0]]).sum()
         });
         Gradients::from(vec![dx, dw])
+    }
+}
+
+impl GenericForward for Health {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, w) = (a.input(0), a.param(0));
+        let (n, k) = (x.shape()[0], x.shape()[1]);
+        vec![Tensor::from_fn(vec![n], |ix| {
+            let mut z = T::zero();
+            for j in 0..k {
+                z += w.data()[j] * x.data()[ix[0] * k + j];
+            }
+            (T::one() + z.exp()).ln()
+        })]
     }
 }
 
@@ -123,7 +130,13 @@ fn main() -> ExitCode {
     let calibrated = Calibrate.forward_generic(&cal_args).remove(0);
     let health_args = Args::new(vec![calibrated], vec![t(&[4], &[0.9, 1.2, -0.8, 0.6])]);
 
-    let audit = env.audit(|a| a);
+    let audit = match env.audit(|a| a) {
+        Ok(a) => a,
+        Err(e) => {
+            eprintln!("ci_gate: {e}");
+            return ExitCode::from(2);
+        }
+    };
     let mut failing = 0;
     let runs = [
         audit.clone().name("calibrate").run(&Calibrate, &cal_args),
@@ -137,20 +150,23 @@ fn main() -> ExitCode {
                 return ExitCode::from(2);
             }
         };
-        match env.record(&report) {
-            Ok(paths) => {
-                for p in paths {
-                    println!("wrote {}", p.display());
+        println!("{report}");
+        if let Some(dir) = &env.report_dir {
+            match plumbline::render::write_report(dir, &report) {
+                Ok(paths) => {
+                    for p in paths {
+                        println!("wrote {}", p.display());
+                    }
                 }
-            }
-            Err(e) => {
-                eprintln!("ci_gate: {e}");
-                return ExitCode::from(2);
+                Err(e) => {
+                    eprintln!("ci_gate: {e}");
+                    return ExitCode::from(2);
+                }
             }
         }
         if !report.passed() {
             failing += 1;
-            eprintln!("{}", plumbline::failure_message(&report));
+            eprintln!("{}", plumbline::render::failure_message(&report));
         }
     }
     println!("{failing} layer(s) with a backward that disagrees");

@@ -9,12 +9,12 @@
 //!
 //! Run: `cargo run --example frost`
 
-use plumbline::{Args, Audit, GenericLayer, Gradients, Scalar, Signature, Tensor};
+use plumbline::{Args, Audit, GenericForward, Gradients, Layer, Scalar, Signature, Tensor};
 
 /// Per-feature standardisation: y = (x − centre) ⊙ inv_scale.
 struct Standardize;
 
-impl GenericLayer for Standardize {
+impl Layer for Standardize {
     type Real = f64;
     fn signature(&self) -> Signature {
         Signature::new()
@@ -22,12 +22,6 @@ impl GenericLayer for Standardize {
             .param("centre", "feature")
             .param("inv_scale", "feature")
             .output("z", "station, feature")
-    }
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, c, s) = (a.input(0), a.param(0), a.param(1));
-        vec![Tensor::from_fn(x.shape().to_vec(), |ix| {
-            (x.get(ix).unwrap() - c.data()[ix[1]]) * s.data()[ix[1]]
-        })]
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         let (x, c, s, g) = (a.input(0), a.param(0), a.param(1), &up[0]);
@@ -47,10 +41,19 @@ impl GenericLayer for Standardize {
     }
 }
 
+impl GenericForward for Standardize {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, c, s) = (a.input(0), a.param(0), a.param(1));
+        vec![Tensor::from_fn(x.shape().to_vec(), |ix| {
+            (x.get(ix).unwrap() - c.data()[ix[1]]) * s.data()[ix[1]]
+        })]
+    }
+}
+
 /// Hidden layer: h = tanh(z·Wᵀ + b).
 struct Hidden;
 
-impl GenericLayer for Hidden {
+impl Layer for Hidden {
     type Real = f64;
     fn signature(&self) -> Signature {
         Signature::new()
@@ -58,17 +61,6 @@ impl GenericLayer for Hidden {
             .param("w_hidden", "unit, feature")
             .param("b_hidden", "unit")
             .output("h", "station, unit")
-    }
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (z, w, b) = (a.input(0), a.param(0), a.param(1));
-        let (n, f, u) = (z.shape()[0], z.shape()[1], w.shape()[0]);
-        vec![Tensor::from_fn(vec![n, u], |ix| {
-            let mut s = b.data()[ix[1]];
-            for k in 0..f {
-                s += w.get(&[ix[1], k]).unwrap() * z.get(&[ix[0], k]).unwrap();
-            }
-            s.tanh()
-        })]
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         let (z, w) = (a.input(0), a.param(0));
@@ -96,11 +88,25 @@ impl GenericLayer for Hidden {
     }
 }
 
+impl GenericForward for Hidden {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (z, w, b) = (a.input(0), a.param(0), a.param(1));
+        let (n, f, u) = (z.shape()[0], z.shape()[1], w.shape()[0]);
+        vec![Tensor::from_fn(vec![n, u], |ix| {
+            let mut s = b.data()[ix[1]];
+            for k in 0..f {
+                s += w.get(&[ix[1], k]).unwrap() * z.get(&[ix[0], k]).unwrap();
+            }
+            s.tanh()
+        })]
+    }
+}
+
 /// Logistic head with mean binary cross-entropy over the stations.
 /// PLANTED BUG: the weight gradient forgets the 1/N of the mean.
 struct FrostHead;
 
-impl GenericLayer for FrostHead {
+impl Layer for FrostHead {
     type Real = f64;
     fn signature(&self) -> Signature {
         Signature::new()
@@ -109,21 +115,6 @@ impl GenericLayer for FrostHead {
             .param("w_out", "unit")
             .param("b_out", "")
             .output("loss", "")
-    }
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (h, y, w, b) = (a.input(0), a.input(1), a.param(0), a.param(1));
-        let (n, u) = (h.shape()[0], h.shape()[1]);
-        let mut loss = T::zero();
-        for i in 0..n {
-            let mut s = b.data()[0];
-            for k in 0..u {
-                s += w.data()[k] * h.get(&[i, k]).unwrap();
-            }
-            // −[y log σ(s) + (1 − y) log(1 − σ(s))] = softplus(s) − y·s
-            let softplus = (T::one() + s.exp()).ln();
-            loss += softplus - y.data()[i] * s;
-        }
-        vec![Tensor::scalar(loss / T::from(n).unwrap())]
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         let (h, y, w, b) = (a.input(0), a.input(1), a.param(0), a.param(1));
@@ -148,6 +139,24 @@ impl GenericLayer for FrostHead {
         });
         let db = Tensor::scalar(ds.iter().sum());
         Gradients::from(vec![dh, dw, db])
+    }
+}
+
+impl GenericForward for FrostHead {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (h, y, w, b) = (a.input(0), a.input(1), a.param(0), a.param(1));
+        let (n, u) = (h.shape()[0], h.shape()[1]);
+        let mut loss = T::zero();
+        for i in 0..n {
+            let mut s = b.data()[0];
+            for k in 0..u {
+                s += w.data()[k] * h.get(&[i, k]).unwrap();
+            }
+            // −[y log σ(s) + (1 − y) log(1 − σ(s))] = softplus(s) − y·s
+            let softplus = (T::one() + s.exp()).ln();
+            loss += softplus - y.data()[i] * s;
+        }
+        vec![Tensor::scalar(loss / T::from(n).unwrap())]
     }
 }
 

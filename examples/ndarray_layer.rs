@@ -5,7 +5,7 @@
 //! Run: `cargo run --example ndarray_layer --features ndarray`
 
 use ndarray::{Array1, Array2, Axis, Ix1, Ix2, ShapeBuilder};
-use plumbline::{assert_backward, Args, Gradients, Layer, Scheme, Signature, Tensor};
+use plumbline::{assert_backward, Args, Forward, Gradients, Layer, Scheme, Signature, Tensor};
 
 /// Weighted daily average of scale readings with softmax weights over the
 /// hour slots, scaled per hive.
@@ -43,11 +43,6 @@ impl Layer for DailyAverage {
             .param("logits", "hour")
             .output("average", "hive")
     }
-    fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> {
-        let (x, logits, s) = arrays(a);
-        let y = x.dot(&softmax(&logits)) * &s;
-        vec![Tensor::from_ndarray(&y)]
-    }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         let (x, logits, s) = arrays(a);
         let g = up[0]
@@ -71,6 +66,14 @@ impl Layer for DailyAverage {
             Tensor::from_ndarray(&ds),
             Tensor::from_ndarray(&dlogits),
         ])
+    }
+}
+
+impl Forward for DailyAverage {
+    fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> {
+        let (x, logits, s) = arrays(a);
+        let y = x.dot(&softmax(&logits)) * &s;
+        vec![Tensor::from_ndarray(&y)]
     }
 }
 

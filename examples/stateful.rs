@@ -10,7 +10,7 @@
 
 use std::cell::RefCell;
 
-use plumbline::{Args, Audit, Gradients, Layer, Signature, Tensor};
+use plumbline::{Args, Audit, Forward, Gradients, Layer, Signature, Tensor};
 
 /// The user's existing layer: a frost-sensor calibration stage,
 /// y = x·Wᵀ + b, written for `f32` with caches and gradient buffers.
@@ -86,15 +86,6 @@ impl Layer for Audited {
             .output("y", "batch, out")
     }
 
-    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
-        let mut l = self.0.borrow_mut();
-        l.w.copy_from_slice(a.param(0).data());
-        l.b.copy_from_slice(a.param(1).data());
-        let y = l.forward(a.input(0).data());
-        let shape = vec![a.input(0).shape()[0], l.outputs];
-        vec![Tensor::new(shape, y).expect("forward output fits its shape")]
-    }
-
     fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
         self.forward(a); // fill the caches for exactly these arguments
         let mut l = self.0.borrow_mut();
@@ -105,6 +96,17 @@ impl Layer for Audited {
             t(a.param(0), l.grad_w.clone()),
             t(a.param(1), l.grad_b.clone()),
         ])
+    }
+}
+
+impl Forward for Audited {
+    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
+        let mut l = self.0.borrow_mut();
+        l.w.copy_from_slice(a.param(0).data());
+        l.b.copy_from_slice(a.param(1).data());
+        let y = l.forward(a.input(0).data());
+        let shape = vec![a.input(0).shape()[0], l.outputs];
+        vec![Tensor::new(shape, y).expect("forward output fits its shape")]
     }
 }
 

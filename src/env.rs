@@ -1,16 +1,41 @@
-//! Settings from environment variables: the CI gate. One pure parser that
-//! takes a lookup closure (so tests never touch the process environment),
-//! one thin wrapper over `std::env`, and the rules for combining them with
-//! the settings written in code.
+//! Settings from `PLUMBLINE_*` environment variables: the CI gate.
+//!
+//! One table of variables, each parsed with `FromStr` and checked by the
+//! same rule as its builder setter, so a value refused in code is refused
+//! in the environment with the same message (naming the variable). One
+//! pure parser takes a lookup closure (tests never touch the process
+//! environment); [`Environment::from_env`] is a thin wrapper over
+//! `std::env`. [`Audit::run`](crate::Audit::run) reads none of these:
+//! [`assert_backward!`](crate::assert_backward) and
+//! [`check_layer`](crate::check_layer) do.
+//!
+//! | variable | values | default | precedence |
+//! |---|---|---|---|
+//! | `PLUMBLINE_SEED` | `u64`, decimal or `0x` hex | `0xC0FFEE` | **wins over code**: replays a failure whatever the test sets |
+//! | `PLUMBLINE_MARGIN` | number in (0, 10000] | `4` | code `margin = ..` wins |
+//! | `PLUMBLINE_MARGIN_FACTOR` | positive number | `1` | **scales every bound**, also those set in code (`< 1` stricter); the scaled margin must stay ≤ 10000 |
+//! | `PLUMBLINE_SCHEME` | `complex-step`, `ridders`, `central` | per layer | code `scheme = ..` wins |
+//! | `PLUMBLINE_KINKS_FAIL` | `1`/`0`, `true`/`false`, `yes`/`no`, `on`/`off` | `false` | code wins |
+//! | `PLUMBLINE_MAX_ELEMENTS` | positive integer | every element | code wins |
+//! | `PLUMBLINE_MAX_EVALUATIONS` | positive integer | `1000000` | code wins |
+//! | `PLUMBLINE_REPORT_DIR` | a directory (created if missing; not a file) | none | writes `<test>--<layer>.json` and `.md` per audit |
+//! | `PLUMBLINE_FORMAT` | `none`, `table`, `markdown`, `json` | `none` | what each audit prints to stdout |
+//! | `PLUMBLINE_COLOR` | `auto`, `always`, `never` | `auto` | `auto`: colour only on a terminal, not with `NO_COLOR` or `TERM=dumb`; `CLICOLOR_FORCE` forces |
+//!
+//! In short: code settings beat the environment, which beats the defaults;
+//! except the seed (the environment replays) and the margin factor (the
+//! environment scales whatever code set). An invalid value is an
+//! [`Error::Setting`] naming the variable.
 
 use std::fmt;
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
+use std::str::FromStr;
 
-use crate::audit::{Audit, Settings};
+use crate::audit::Audit;
 use crate::error::Error;
-use crate::report::Report;
+use crate::render::ColorChoice;
 use crate::scheme::Scheme;
-use crate::terminal::ColorChoice;
+use crate::tolerance::check_margin;
 
 /// Seed of the random upstream gradient; replays an audit.
 pub const SEED_VAR: &str = "PLUMBLINE_SEED";
@@ -24,6 +49,8 @@ pub const SCHEME_VAR: &str = "PLUMBLINE_SCHEME";
 pub const KINKS_FAIL_VAR: &str = "PLUMBLINE_KINKS_FAIL";
 /// Default cap on the elements checked per tensor.
 pub const MAX_ELEMENTS_VAR: &str = "PLUMBLINE_MAX_ELEMENTS";
+/// Default budget of forward evaluations per audit.
+pub const MAX_EVALUATIONS_VAR: &str = "PLUMBLINE_MAX_EVALUATIONS";
 /// Directory for JSON and Markdown reports.
 pub const REPORT_DIR_VAR: &str = "PLUMBLINE_REPORT_DIR";
 /// What each audit prints to standard output.
@@ -32,10 +59,11 @@ pub const FORMAT_VAR: &str = "PLUMBLINE_FORMAT";
 pub const COLOR_VAR: &str = "PLUMBLINE_COLOR";
 
 /// What every audit run through [`assert_backward!`](crate::assert_backward)
-/// or `check_layer` prints to standard output (through `println!`, so
-/// `cargo test` captures it and shows it for failing tests or with
-/// `--nocapture`).
+/// or [`check_layer`](crate::check_layer) prints to standard output
+/// (through `println!`, so `cargo test` captures it and shows it for
+/// failing tests or with `--nocapture`).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+#[non_exhaustive]
 pub enum PrintFormat {
     /// Print nothing (a failure still panics with the whole table).
     #[default]
@@ -48,38 +76,78 @@ pub enum PrintFormat {
     Json,
 }
 
-impl PrintFormat {
-    /// Parses `none`, `table`, `markdown` (or `md`), `json`.
-    ///
-    /// ```
-    /// use plumbline::PrintFormat;
-    /// assert_eq!(PrintFormat::parse("Markdown"), Some(PrintFormat::Markdown));
-    /// assert_eq!(PrintFormat::parse("xml"), None);
-    /// ```
-    pub fn parse(s: &str) -> Option<PrintFormat> {
+/// Parses `none` (or `off`), `table`, `markdown` (or `md`), `json`.
+///
+/// ```
+/// use plumbline::env::PrintFormat;
+/// assert_eq!("Markdown".parse(), Ok(PrintFormat::Markdown));
+/// assert!("xml".parse::<PrintFormat>().is_err());
+/// ```
+impl FromStr for PrintFormat {
+    type Err = String;
+    fn from_str(s: &str) -> Result<PrintFormat, String> {
         match s.trim().to_ascii_lowercase().as_str() {
-            "none" | "off" => Some(PrintFormat::None),
-            "table" => Some(PrintFormat::Table),
-            "markdown" | "md" => Some(PrintFormat::Markdown),
-            "json" => Some(PrintFormat::Json),
-            _ => None,
-        }
-    }
-
-    /// The name accepted by [`parse`](PrintFormat::parse).
-    pub fn as_str(self) -> &'static str {
-        match self {
-            PrintFormat::None => "none",
-            PrintFormat::Table => "table",
-            PrintFormat::Markdown => "markdown",
-            PrintFormat::Json => "json",
+            "none" | "off" => Ok(PrintFormat::None),
+            "table" => Ok(PrintFormat::Table),
+            "markdown" | "md" => Ok(PrintFormat::Markdown),
+            "json" => Ok(PrintFormat::Json),
+            _ => Err("expected `none`, `table`, `markdown` or `json`".to_string()),
         }
     }
 }
 
 impl fmt::Display for PrintFormat {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(self.as_str())
+        f.write_str(match self {
+            PrintFormat::None => "none",
+            PrintFormat::Table => "table",
+            PrintFormat::Markdown => "markdown",
+            PrintFormat::Json => "json",
+        })
+    }
+}
+
+/// A yes/no setting: `1`/`0`, `true`/`false`, `yes`/`no`, `on`/`off`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+struct Switch(bool);
+
+impl FromStr for Switch {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Switch, String> {
+        match s.trim().to_ascii_lowercase().as_str() {
+            "1" | "true" | "yes" | "on" => Ok(Switch(true)),
+            "0" | "false" | "no" | "off" => Ok(Switch(false)),
+            _ => Err("expected `1`/`0`, `true`/`false`, `yes`/`no` or `on`/`off`".to_string()),
+        }
+    }
+}
+
+/// A seed: decimal or `0x` hex.
+struct Seed(u64);
+
+impl FromStr for Seed {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Seed, String> {
+        let t = s.trim();
+        match t.strip_prefix("0x").or_else(|| t.strip_prefix("0X")) {
+            Some(hex) => u64::from_str_radix(hex, 16),
+            None => t.parse::<u64>(),
+        }
+        .map(Seed)
+        .map_err(|_| "expected an unsigned 64-bit integer, decimal or 0x hex".to_string())
+    }
+}
+
+/// A count of at least 1.
+struct Count(u64);
+
+impl FromStr for Count {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Count, String> {
+        match s.trim().parse::<u64>() {
+            Ok(n) if n > 0 => Ok(Count(n)),
+            _ => Err("expected a positive integer".to_string()),
+        }
     }
 }
 
@@ -87,23 +155,28 @@ impl fmt::Display for PrintFormat {
 ///
 /// Every field is `None` (or the default) when its variable is unset or
 /// empty. Build one with [`Environment::from_env`] (the process
-/// environment) or [`Environment::from_lookup`] (any lookup, for tests).
+/// environment) or [`Environment::from_lookup`] (any lookup, for tests);
+/// see the [module docs](self) for the table of variables.
 #[derive(Clone, Debug, PartialEq, Default)]
+#[non_exhaustive]
 pub struct Environment {
     /// `PLUMBLINE_SEED`: replaces every seed, also one set in code.
     pub seed: Option<u64>,
     /// `PLUMBLINE_MARGIN`: default margin; a margin set in code wins.
     pub margin: Option<f64>,
     /// `PLUMBLINE_MARGIN_FACTOR`: multiplies every bound (margin, and fixed
-    /// `epsilon` / `max_relative` bounds), after code settings.
+    /// bounds), after code settings.
     pub margin_factor: Option<f64>,
     /// `PLUMBLINE_SCHEME`: default scheme; a scheme set in code wins.
     pub scheme: Option<Scheme>,
     /// `PLUMBLINE_KINKS_FAIL`: default for failing kinks; code wins.
     pub kinks_fail: Option<bool>,
     /// `PLUMBLINE_MAX_ELEMENTS`: default cap on the elements checked per
-    /// tensor; code `.max_elements(..)` wins.
+    /// tensor; code wins.
     pub max_elements: Option<usize>,
+    /// `PLUMBLINE_MAX_EVALUATIONS`: default budget of forward evaluations;
+    /// code wins.
+    pub max_evaluations: Option<u64>,
     /// `PLUMBLINE_REPORT_DIR`: write a JSON report and a Markdown summary
     /// of every audit here.
     pub report_dir: Option<PathBuf>,
@@ -113,33 +186,32 @@ pub struct Environment {
     pub color: ColorChoice,
 }
 
-fn bad(var: &str, value: &str, detail: &str) -> Error {
+fn bad(var: &str, value: &str, detail: impl Into<String>) -> Error {
     Error::Setting {
         setting: var.to_string(),
         value: value.to_string(),
-        detail: detail.to_string(),
+        detail: detail.into(),
     }
 }
 
-fn positive(var: &str, v: &str) -> Result<f64, Error> {
-    match v.trim().parse::<f64>() {
-        Ok(x) if x.is_finite() && x > 0.0 => Ok(x),
-        _ => Err(bad(
-            var,
-            v,
-            "expected a positive finite number, e.g. `8` or `0.5`",
-        )),
-    }
+/// Parses a variable's value with `FromStr`, naming the variable on error.
+fn parse<T: FromStr>(var: &str, value: &str) -> Result<T, Error>
+where
+    T::Err: fmt::Display,
+{
+    value
+        .trim()
+        .parse::<T>()
+        .map_err(|e| bad(var, value, e.to_string()))
 }
 
 impl Environment {
-    /// Reads the settings from the process environment. A thin wrapper over
-    /// [`from_lookup`](Environment::from_lookup); see there for the table of
-    /// variables.
+    /// Reads the settings from the process environment.
     ///
     /// ```
-    /// let env = plumbline::Environment::from_env()?;
-    /// let audit = env.audit(|a| a.seed(7));
+    /// let env = plumbline::env::Environment::from_env()?;
+    /// let audit = env.audit(|a| a.seed(7))?;
+    /// # let _ = audit;
     /// # Ok::<(), plumbline::Error>(())
     /// ```
     pub fn from_env() -> Result<Environment, Error> {
@@ -149,27 +221,9 @@ impl Environment {
     /// Reads the settings through `lookup` (a variable name to its value).
     /// Unset and empty variables mean "not set".
     ///
-    /// | variable | values | default | precedence |
-    /// |---|---|---|---|
-    /// | `PLUMBLINE_SEED` | `u64`, decimal or `0x` hex | `0xC0FFEE` | **wins over code**: replays a failure whatever the test sets |
-    /// | `PLUMBLINE_MARGIN` | positive number | `4` | code `.margin(..)` wins |
-    /// | `PLUMBLINE_MARGIN_FACTOR` | positive number | `1` | **scales every bound**, also those set in code (`< 1` stricter) |
-    /// | `PLUMBLINE_SCHEME` | `complex-step`, `ridders`, `central` | per layer | code `.scheme(..)` wins |
-    /// | `PLUMBLINE_KINKS_FAIL` | `1`/`0`, `true`/`false`, `yes`/`no`, `on`/`off` | `false` | code `.kinks_fail(..)` wins |
-    /// | `PLUMBLINE_MAX_ELEMENTS` | positive integer | every element | code `.max_elements(..)` wins |
-    /// | `PLUMBLINE_REPORT_DIR` | a directory (created if missing) | none | writes `<test>--<layer>.json` and `.md` per audit |
-    /// | `PLUMBLINE_FORMAT` | `none`, `table`, `markdown`, `json` | `none` | what each audit prints to stdout |
-    /// | `PLUMBLINE_COLOR` | `auto`, `always`, `never` | `auto` | `auto`: colour only on a terminal, not with `NO_COLOR` or `TERM=dumb`; `CLICOLOR_FORCE` forces |
-    ///
-    /// In short: code settings beat the environment, which beats the
-    /// defaults; except the seed (the environment replays) and the margin
-    /// factor (the environment scales whatever code set). Panic messages are
-    /// never coloured.
-    ///
-    /// An invalid value is an [`Error::Setting`] naming the variable.
-    ///
     /// ```
-    /// use plumbline::{Environment, Error, PrintFormat, Scheme};
+    /// use plumbline::env::{Environment, PrintFormat};
+    /// use plumbline::{Error, Scheme};
     ///
     /// let vars = [("PLUMBLINE_SEED", "0x2a"), ("PLUMBLINE_SCHEME", "central"), ("PLUMBLINE_FORMAT", "json")];
     /// let lookup = |name: &str| vars.iter().find(|(k, _)| *k == name).map(|(_, v)| v.to_string());
@@ -186,161 +240,144 @@ impl Environment {
         let get = |name: &str| lookup(name).filter(|v| !v.trim().is_empty());
         let mut env = Environment::default();
         if let Some(v) = get(SEED_VAR) {
-            let t = v.trim();
-            let parsed = match t.strip_prefix("0x").or_else(|| t.strip_prefix("0X")) {
-                Some(hex) => u64::from_str_radix(hex, 16),
-                None => t.parse::<u64>(),
-            };
-            env.seed = Some(parsed.map_err(|_| {
-                bad(
-                    SEED_VAR,
-                    &v,
-                    "expected an unsigned 64-bit integer, decimal or 0x hex",
-                )
-            })?);
+            env.seed = Some(parse::<Seed>(SEED_VAR, &v)?.0);
         }
         if let Some(v) = get(MARGIN_VAR) {
-            env.margin = Some(positive(MARGIN_VAR, &v)?);
+            let m: f64 = parse(MARGIN_VAR, &v)?;
+            check_margin(MARGIN_VAR, m)?;
+            env.margin = Some(m);
         }
         if let Some(v) = get(MARGIN_FACTOR_VAR) {
-            env.margin_factor = Some(positive(MARGIN_FACTOR_VAR, &v)?);
+            let f: f64 = parse(MARGIN_FACTOR_VAR, &v)?;
+            if !(f.is_finite() && f > 0.0) {
+                return Err(bad(
+                    MARGIN_FACTOR_VAR,
+                    &v,
+                    "expected a positive finite number, e.g. `2` or `0.5`",
+                ));
+            }
+            env.margin_factor = Some(f);
         }
         if let Some(v) = get(SCHEME_VAR) {
-            env.scheme = Some(Scheme::parse(&v).ok_or_else(|| {
-                bad(
-                    SCHEME_VAR,
-                    &v,
-                    "expected `complex-step`, `ridders` or `central`",
-                )
-            })?);
+            env.scheme = Some(parse(SCHEME_VAR, &v)?);
         }
         if let Some(v) = get(KINKS_FAIL_VAR) {
-            env.kinks_fail = Some(
-                match v.trim().to_ascii_lowercase().as_str() {
-                    "1" | "true" | "yes" | "on" => Some(true),
-                    "0" | "false" | "no" | "off" => Some(false),
-                    _ => None,
-                }
-                .ok_or_else(|| {
-                    bad(
-                        KINKS_FAIL_VAR,
-                        &v,
-                        "expected `1`/`0`, `true`/`false`, `yes`/`no` or `on`/`off`",
-                    )
-                })?,
-            );
+            env.kinks_fail = Some(parse::<Switch>(KINKS_FAIL_VAR, &v)?.0);
         }
         if let Some(v) = get(MAX_ELEMENTS_VAR) {
-            env.max_elements = Some(
-                v.trim()
-                    .parse::<usize>()
-                    .ok()
-                    .filter(|&n| n > 0)
-                    .ok_or_else(|| bad(MAX_ELEMENTS_VAR, &v, "expected a positive integer"))?,
-            );
+            let n = parse::<Count>(MAX_ELEMENTS_VAR, &v)?.0;
+            env.max_elements = Some(usize::try_from(n).unwrap_or(usize::MAX));
+        }
+        if let Some(v) = get(MAX_EVALUATIONS_VAR) {
+            env.max_evaluations = Some(parse::<Count>(MAX_EVALUATIONS_VAR, &v)?.0);
         }
         if let Some(v) = get(REPORT_DIR_VAR) {
-            env.report_dir = Some(PathBuf::from(v));
+            let dir = PathBuf::from(&v);
+            if dir.exists() && !dir.is_dir() {
+                return Err(bad(
+                    REPORT_DIR_VAR,
+                    &v,
+                    "names a file; it must be a directory (created if missing)",
+                ));
+            }
+            env.report_dir = Some(dir);
         }
         if let Some(v) = get(FORMAT_VAR) {
-            env.format = PrintFormat::parse(&v).ok_or_else(|| {
-                bad(
-                    FORMAT_VAR,
-                    &v,
-                    "expected `none`, `table`, `markdown` or `json`",
-                )
-            })?;
+            env.format = parse(FORMAT_VAR, &v)?;
         }
         if let Some(v) = get(COLOR_VAR) {
-            env.color = ColorChoice::parse(&v)
-                .ok_or_else(|| bad(COLOR_VAR, &v, "expected `auto`, `always` or `never`"))?;
+            env.color = parse(COLOR_VAR, &v)?;
         }
         Ok(env)
     }
 
-    /// The defaults with this environment applied: what code settings start
-    /// from.
-    pub fn defaults(&self) -> Settings {
-        let mut s = Settings::default();
+    /// The defaults with this environment applied: what code settings
+    /// start from.
+    pub(crate) fn defaults(&self) -> Audit {
+        let mut a = Audit::new();
         if let Some(m) = self.margin {
-            s.tolerance.margin = m;
+            a = a.margin(m);
         }
-        s.scheme = self.scheme.or(s.scheme);
-        s.kinks_fail = self.kinks_fail.unwrap_or(s.kinks_fail);
-        s.max_elements = self.max_elements.or(s.max_elements);
-        s
+        if let Some(s) = self.scheme {
+            a = a.scheme(s);
+        }
+        if let Some(k) = self.kinks_fail {
+            a = a.kinks_fail(k);
+        }
+        if let Some(n) = self.max_elements {
+            a = a.max_elements(n);
+        }
+        if let Some(n) = self.max_evaluations {
+            a = a.max_evaluations(n);
+        }
+        a
     }
 
     /// Applies the settings that win over code: the replay seed and the
-    /// margin factor.
-    pub fn overrides(&self, mut s: Settings) -> Settings {
+    /// margin factor. A factor that takes the margin out of its range is
+    /// refused, naming the variable.
+    pub(crate) fn overrides(&self, mut a: Audit) -> Result<Audit, Error> {
         if let Some(seed) = self.seed {
-            s.seed = seed;
+            a = a.seed(seed);
         }
         if let Some(f) = self.margin_factor {
-            s.tolerance.margin *= f;
-            s.tolerance.epsilon = s.tolerance.epsilon.map(|e| e * f);
-            s.tolerance.max_relative = s.tolerance.max_relative.map(|r| r * f);
+            a = a.scale_bounds(f);
+            check_margin(MARGIN_FACTOR_VAR, a.tolerance.margin).map_err(|_| {
+                bad(
+                    MARGIN_FACTOR_VAR,
+                    &f.to_string(),
+                    format!(
+                        "scales the margin to {}, outside (0, 10000]: such a bound accepts anything",
+                        a.tolerance.margin
+                    ),
+                )
+            })?;
         }
-        s
+        Ok(a)
     }
 
-    /// The audit for one call: [`defaults`](Environment::defaults), then the
-    /// code settings `configure` applies, then
-    /// [`overrides`](Environment::overrides).
+    /// The audit for one call: the environment's defaults, then the code
+    /// settings `configure` applies, then the seed and margin factor.
     ///
     /// ```
-    /// use plumbline::Environment;
-    /// let env = Environment { seed: Some(9), margin: Some(2.0), margin_factor: Some(0.5), ..Environment::default() };
-    /// let audit = env.audit(|a| a.seed(3).margin(8.0));
-    /// assert_eq!(audit.settings().seed, 9); // the environment replays
-    /// assert_eq!(audit.settings().tolerance.margin, 4.0); // code margin, scaled
-    /// assert_eq!(env.audit(|a| a).settings().tolerance.margin, 1.0); // env margin, scaled
+    /// use plumbline::env::Environment;
+    /// let env = Environment::from_lookup(|n| match n {
+    ///     "PLUMBLINE_SEED" => Some("9".into()),
+    ///     "PLUMBLINE_MARGIN_FACTOR" => Some("0.5".into()),
+    ///     _ => None,
+    /// })?;
+    /// let audit = env.audit(|a| a.seed(3).margin(8.0))?;
+    /// let text = format!("{audit:?}");
+    /// assert!(text.contains("seed: 9")); // the environment replays
+    /// assert!(text.contains("margin: 4.0")); // code margin, scaled
+    /// # Ok::<(), plumbline::Error>(())
     /// ```
-    pub fn audit(&self, configure: impl FnOnce(Audit) -> Audit) -> Audit {
-        let configured = configure(Audit::with_settings(self.defaults()));
-        Audit::with_settings(self.overrides(configured.settings().clone()))
-    }
-
-    /// Handles one finished report: prints it in [`format`](Environment::format)
-    /// and, with a report directory, writes `<stem>.json` and `<stem>.md`
-    /// there, where the stem is the current thread's name (the test's name
-    /// under `cargo test`) and the layer name. Returns the paths written.
-    pub fn record(&self, report: &Report) -> Result<Vec<PathBuf>, Error> {
-        match self.format {
-            PrintFormat::None => {}
-            PrintFormat::Table => {
-                let style = crate::terminal::stdout_style(self.color);
-                println!("{}", crate::render::table(report, &style));
-            }
-            PrintFormat::Markdown => println!("{}", crate::render::markdown(report)),
-            PrintFormat::Json => println!("{}", report_json(report)),
-        }
-        match &self.report_dir {
-            Some(dir) => write_report_files(dir, &report_stem(report), report),
-            None => Ok(Vec::new()),
-        }
+    pub fn audit(&self, configure: impl FnOnce(Audit) -> Audit) -> Result<Audit, Error> {
+        self.overrides(configure(self.defaults()))
     }
 
     /// A paragraph for failure messages: where the seed and margin came
-    /// from and which variable changes them.
-    pub(crate) fn explain(&self, code: &Settings) -> String {
+    /// from and which variable changes them. `code` holds what the test's
+    /// own settings would be without the environment.
+    pub(crate) fn explain(&self, code: &Audit) -> String {
         let mut out = String::new();
+        let plain = Audit::new();
         let seed_from = if self.seed.is_some() {
             format!("from {SEED_VAR}, which replaces any seed set in code")
-        } else if code.seed != Settings::default().seed {
+        } else if code.seed != plain.seed {
             "set in code".to_string()
         } else {
             "the default".to_string()
         };
-        out.push_str(&format!("seed: {seed_from}\n"));
-        let defaults = self.defaults();
-        let margin_from = if code.tolerance != defaults.tolerance {
+        out.push_str(&format!(
+            "seed: {seed_from}; replay with {SEED_VAR}=<seed>\n"
+        ));
+        let margin_from = if code.tolerance != plain.tolerance {
             format!("set in code, so {MARGIN_VAR} does not change it")
         } else if self.margin.is_some() {
             format!("from {MARGIN_VAR}")
         } else {
-            "the default".to_string()
+            format!("the default; {MARGIN_VAR} changes it")
         };
         out.push_str(&format!(
             "bounds: {margin_from}; {MARGIN_FACTOR_VAR} (now {}) scales every bound, including those set in code\n",
@@ -353,48 +390,4 @@ impl Environment {
         }
         out
     }
-}
-
-/// The report as pretty JSON (per-element detail is not included).
-pub(crate) fn report_json(report: &Report) -> String {
-    // Serialising plain data with derived impls cannot fail; keep a visible
-    // fallback rather than a panic all the same.
-    serde_json::to_string_pretty(report)
-        .unwrap_or_else(|e| format!("{{\"error\": \"report not serialisable: {e}\"}}"))
-}
-
-fn sanitize(s: &str) -> String {
-    s.chars()
-        .map(|c| {
-            if c.is_ascii_alphanumeric() || c == '-' || c == '_' || c == '.' {
-                c
-            } else {
-                '_'
-            }
-        })
-        .collect()
-}
-
-fn report_stem(report: &Report) -> String {
-    let thread = std::thread::current();
-    let test = thread.name().unwrap_or("audit");
-    format!("{}--{}", sanitize(test), sanitize(&report.layer))
-}
-
-/// Writes `<dir>/<stem>.json` and `<dir>/<stem>.md`, creating `dir`.
-pub(crate) fn write_report_files(
-    dir: &Path,
-    stem: &str,
-    report: &Report,
-) -> Result<Vec<PathBuf>, Error> {
-    let io = |path: &Path, e: std::io::Error| Error::ReportIo {
-        path: path.display().to_string(),
-        detail: e.to_string(),
-    };
-    std::fs::create_dir_all(dir).map_err(|e| io(dir, e))?;
-    let json = dir.join(format!("{stem}.json"));
-    std::fs::write(&json, report_json(report)).map_err(|e| io(&json, e))?;
-    let md = dir.join(format!("{stem}.md"));
-    std::fs::write(&md, crate::render::markdown(report)).map_err(|e| io(&md, e))?;
-    Ok(vec![json, md])
 }

@@ -15,7 +15,7 @@ pub enum Error {
     /// Tensor data whose length is not the product of its shape.
     #[error(
         "tensor of shape {} needs {expected} elements, but {found} were given",
-        crate::tensor::shape_string(shape)
+        crate::format::shape_string(shape)
     )]
     DataLength {
         /// The requested shape.
@@ -24,6 +24,15 @@ pub enum Error {
         expected: usize,
         /// Length of the data given.
         found: usize,
+    },
+    /// A shape whose element count overflows `usize`.
+    #[error(
+        "a tensor of shape {} has more elements than usize can count",
+        crate::format::shape_string(shape)
+    )]
+    ShapeOverflow {
+        /// The requested shape.
+        shape: Vec<usize>,
     },
     /// The layer's signature is malformed (bad dimension spec, duplicate name).
     #[error("layer `{layer}`: bad signature: {detail}")]
@@ -60,7 +69,7 @@ pub enum Error {
     /// An argument tensor whose shape does not fit the signature.
     #[error(
         "{role} `{tensor}` has shape {}, but the signature wants {expected}: {detail}",
-        crate::tensor::shape_string(found)
+        crate::format::shape_string(found)
     )]
     ArgumentShape {
         /// Tensor name.
@@ -89,7 +98,7 @@ pub enum Error {
         found: usize,
     },
     /// `forward` returned an output whose shape does not fit the signature.
-    #[error("{call} returned output `{output}` of shape {}, but the signature wants {expected}: {detail}", crate::tensor::shape_string(found))]
+    #[error("{call} returned output `{output}` of shape {}, but the signature wants {expected}: {detail}", crate::format::shape_string(found))]
     OutputShape {
         /// Which layer and call, e.g. ``forward of `Dense` (second call)``.
         call: String,
@@ -111,6 +120,43 @@ pub enum Error {
         value: String,
         /// What is accepted.
         detail: String,
+    },
+    /// The layer's `forward` or `backward` panicked. The panic does not
+    /// unwind through the audit; this error says where it happened.
+    #[error("layer `{layer}` panicked in {call}{at}: {message}")]
+    LayerPanicked {
+        /// Layer name.
+        layer: String,
+        /// `forward` or `backward`.
+        call: String,
+        /// Where, e.g. `` while `x` [1, 2] was moved to 1.0000001`` (empty
+        /// for a call at the audit's arguments).
+        at: String,
+        /// The panic's message.
+        message: String,
+    },
+    /// `backward` returned more gradients than the signature has
+    /// differentiable tensors.
+    #[error("layer `{layer}`: backward returned {found} gradient(s), but the signature has {expected} differentiable tensor(s) ({names}); fixed inputs take no gradient")]
+    GradientCount {
+        /// Layer name.
+        layer: String,
+        /// Differentiable tensors in the signature.
+        expected: usize,
+        /// Their names.
+        names: String,
+        /// Gradients returned.
+        found: usize,
+    },
+    /// The audit would take more forward evaluations than its budget allows.
+    #[error("layer `{layer}`: an audit element by element needs about {needed} forward evaluations, above the budget of {budget}; raise it with `.max_evaluations(..)` or PLUMBLINE_MAX_EVALUATIONS, or check a sample with `.max_elements(..)` or PLUMBLINE_MAX_ELEMENTS")]
+    OverBudget {
+        /// Layer name.
+        layer: String,
+        /// Estimated forward evaluations.
+        needed: u64,
+        /// The budget in force.
+        budget: u64,
     },
     /// Writing a report file failed.
     #[error("could not write report `{path}`: {detail}")]

@@ -18,6 +18,12 @@ pub(crate) fn num(x: f64) -> String {
     }
 }
 
+/// A shape or multi-index as `[2, 3]` (`[]` for rank 0).
+pub(crate) fn shape_string(shape: &[usize]) -> String {
+    let parts: Vec<String> = shape.iter().map(usize::to_string).collect();
+    format!("[{}]", parts.join(", "))
+}
+
 /// A short error figure with 2 significant digits (`3.1e-12`).
 pub(crate) fn err(x: f64) -> String {
     if x == 0.0 || !x.is_finite() {

@@ -1,39 +1,76 @@
-//! Test-harness glue: the [`assert_backward!`](crate::assert_backward)
-//! macro and the proptest entry point [`check_layer`]. Both read the
-//! `PLUMBLINE_*` environment (see [`Environment::from_lookup`]), run the
-//! audit, record the report, and turn the verdict into a panic or a
-//! proptest result.
+//! Test-harness glue: [`Report::assert_passed`], the
+//! [`assert_backward!`](crate::assert_backward) macro and the proptest
+//! entry point [`check_layer`]. The macro and `check_layer` read the
+//! `PLUMBLINE_*` environment (see [`env`](crate::env)), run the audit,
+//! record the report (print it, write files), and turn the verdict into a
+//! panic or a proptest result.
+
+use std::fmt::Write as _;
 
 use crate::audit::Audit;
-use crate::env::Environment;
-use crate::layer::Layer;
-use crate::report::Report;
+use crate::env::{Environment, PrintFormat, SCHEME_VAR};
+use crate::error::Error;
+use crate::layer::{Args, Forward};
+use crate::render::{failure_head, failure_message, files, markdown, stdout_style, table};
+use crate::report::{ElementStatus, Passed, Report, Verdict};
+
+impl Report {
+    /// Panics with the whole table unless the audit passed. The message
+    /// names the failing tensors and the code settings that replay
+    /// (`.seed(..)`) or change (`.margin(..)`) the outcome.
+    ///
+    /// ```should_panic
+    /// # use plumbline::prelude::*;
+    /// # struct Bad;
+    /// # impl Layer for Bad {
+    /// #     type Real = f64;
+    /// #     fn signature(&self) -> Signature { Signature::new().input("x", "n").output("y", "n") }
+    /// #     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
+    /// #         Gradients::from(vec![g[0].map(|g| -3.0 * g)])
+    /// #     }
+    /// # }
+    /// # impl Forward for Bad {
+    /// #     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> { vec![a.input(0).map(|x| 3.0 * x)] }
+    /// # }
+    /// let x = Tensor::new(vec![2], vec![1.0, 2.0]).unwrap();
+    /// let report = Audit::new().run(&Bad, &Args::new(vec![x], vec![])).unwrap();
+    /// report.assert_passed(); // panics: sign flipped
+    /// ```
+    #[track_caller]
+    pub fn assert_passed(&self) {
+        if !self.passed() {
+            panic!("{}", failure_message(self));
+        }
+    }
+}
 
 /// Asserts that a layer's backward agrees with its forward, and returns
-/// the [`Report`].
+/// the report (as [`Passed`], which derefs to [`Report`] and may be
+/// dropped).
 ///
 /// Forms:
 ///
-/// * `assert_backward!(layer, &args)`
+/// * `assert_backward!(layer, &args)` (the layer by value or by reference:
+///   `assert_backward!(&layer, &args)` works the same)
 /// * `assert_backward!(layer, &args, key = value, ...)`: each `key = value`
 ///   calls the [`Audit`] setter of that name (`seed`, `scheme`, `margin`,
-///   `epsilon`, `max_relative`, `kinks_fail`, `max_elements`, `name`), so the macro accepts
-///   every builder option there is.
+///   `max_absolute`, `max_relative`, `kinks_fail`, `max_elements`,
+///   `max_evaluations`, `own_precision`, `name`), so the macro accepts every
+///   builder option there is, with the same rules.
 ///
 /// Settings start from the `PLUMBLINE_*` environment variables; code
 /// settings win over them, except `PLUMBLINE_SEED` (replays) and
-/// `PLUMBLINE_MARGIN_FACTOR` (scales every bound) — see
-/// [`Environment::from_lookup`] for the table.
+/// `PLUMBLINE_MARGIN_FACTOR` (scales every bound): see [`env`](crate::env).
 ///
 /// # Panics
 /// * When the audit fails: with the ranked table, the seed that replays it
 ///   and the setting or environment variable that would change the outcome.
 /// * On misuse (wrong argument shapes, a malformed signature, an invalid
-///   environment variable, an unwritable report directory): with the
-///   error's message.
+///   setting or environment variable, an unwritable report directory) and
+///   when the layer panics: with the error's message, which says where.
 ///
 /// ```
-/// use plumbline::{assert_backward, Args, Gradients, Layer, Scheme, Signature, Tensor};
+/// use plumbline::prelude::*;
 ///
 /// /// Hive weight in kg from a load-cell reading: y = k·x.
 /// struct LoadCell;
@@ -43,14 +80,17 @@ use crate::report::Report;
 ///     fn signature(&self) -> Signature {
 ///         Signature::new().input("reading", "hive").param("k", "").output("kg", "hive")
 ///     }
-///     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> {
-///         let k = a.param(0).data()[0];
-///         vec![a.input(0).map(|x| k * x)]
-///     }
 ///     fn backward(&self, a: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
-///         let (x, k) = (a.input(0), a.param(0).data()[0]);
+///         let (x, k) = (a.input(0), a.param(0)[[]]);
 ///         let dk = x.data().iter().zip(g[0].data()).map(|(x, g)| x * g).sum();
 ///         Gradients::from(vec![g[0].map(|g| k * g), Tensor::scalar(dk)])
+///     }
+/// }
+///
+/// impl Forward for LoadCell {
+///     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> {
+///         let k = a.param(0)[[]];
+///         vec![a.input(0).map(|x| k * x)]
 ///     }
 /// }
 ///
@@ -60,63 +100,123 @@ use crate::report::Report;
 /// );
 /// let report = assert_backward!(LoadCell, &args);
 /// assert_eq!(report.rows.len(), 2);
-/// assert_backward!(LoadCell, &args, seed = 3, scheme = Scheme::Central, margin = 8.0);
+/// let layer = LoadCell;
+/// assert_backward!(&layer, &args, seed = 3, scheme = Scheme::Central, margin = 8.0);
 /// # Ok::<(), plumbline::Error>(())
 /// ```
 #[macro_export]
 macro_rules! assert_backward {
-    ($layer:expr, $args:expr $(,)?) => {
-        $crate::__assert_backward(&$layer, $args, |audit| audit)
-    };
-    ($layer:expr, $args:expr, $($key:ident = $value:expr),+ $(,)?) => {
-        $crate::__assert_backward(&$layer, $args, |audit| audit $(.$key($value))+)
-    };
+    ($layer:expr, $args:expr $(,)?) => {{
+        use $crate::__Audited as _;
+        $crate::__assert_backward(($layer).__audited(), $args, |audit| audit)
+    }};
+    ($layer:expr, $args:expr, $($key:ident = $value:expr),+ $(,)?) => {{
+        use $crate::__Audited as _;
+        $crate::__assert_backward(($layer).__audited(), $args, |audit| audit $(.$key($value))+)
+    }};
 }
+
+/// Lets [`assert_backward!`](crate::assert_backward) take a layer by value
+/// or by reference: method-call auto-deref finds the layer behind any
+/// number of `&`. Not public API.
+#[doc(hidden)]
+pub trait __Audited: Forward {
+    /// The layer itself.
+    fn __audited(&self) -> &Self {
+        self
+    }
+}
+
+impl<L: Forward + ?Sized> __Audited for L {}
 
 /// The body of [`assert_backward!`](crate::assert_backward); not public API.
 #[doc(hidden)]
 #[track_caller]
-pub fn __assert_backward<L: Layer + ?Sized>(
+pub fn __assert_backward<L: Forward + ?Sized>(
     layer: &L,
-    args: &crate::layer::Args<L::Real>,
-    configure: impl FnOnce(Audit) -> Audit,
-) -> Report {
+    args: &Args<L::Real>,
+    configure: impl Fn(Audit) -> Audit,
+) -> Passed {
     let env = match Environment::from_env() {
         Ok(env) => env,
         Err(e) => panic!("assert_backward!: {e}"),
     };
-    let code = configure(Audit::with_settings(env.defaults()));
-    let code_settings = code.settings().clone();
-    let audit = Audit::with_settings(env.overrides(code_settings.clone()));
-    let report = match audit.run(layer, args) {
-        Ok(r) => r,
+    match audit_with_env(layer, args, &env, &configure) {
+        Ok(report) => {
+            if let Err(e) = record(&env, &report, true) {
+                panic!("assert_backward!: {e}");
+            }
+            if !report.passed() {
+                panic!("{}", failure_text(&report, &env, &configure(Audit::new())));
+            }
+            Passed(report)
+        }
         Err(e) => panic!("assert_backward!: {e}"),
-    };
-    if let Err(e) = env.record(&report) {
-        panic!("assert_backward!: {e}");
     }
-    if !report.passed() {
-        panic!("{}", failure_text(&report, &env, &code_settings));
-    }
-    report
 }
 
-/// The whole failure message: the renderer's message plus where the
-/// settings came from.
-pub(crate) fn failure_text(
-    report: &Report,
+/// Runs the audit with the environment's defaults, the code settings and
+/// the environment's overrides. A scheme the layer cannot support names
+/// `PLUMBLINE_SCHEME` when that is where it came from.
+fn audit_with_env<L: Forward + ?Sized>(
+    layer: &L,
+    args: &Args<L::Real>,
     env: &Environment,
-    code: &crate::audit::Settings,
-) -> String {
-    format!(
-        "{}{}",
-        crate::render::failure_message(report),
-        env.explain(code)
-    )
+    configure: &impl Fn(Audit) -> Audit,
+) -> Result<Report, Error> {
+    let audit = env.audit(configure)?;
+    audit.run(layer, args).map_err(|e| match e {
+        Error::Setting {
+            setting,
+            value,
+            detail,
+        } if setting == "scheme"
+            && env.scheme.is_some()
+            && configure(Audit::new()).scheme.is_none() =>
+        {
+            Error::Setting {
+                setting: SCHEME_VAR.to_string(),
+                value,
+                detail,
+            }
+        }
+        other => other,
+    })
+}
+
+/// The whole failure message of the environment-aware helpers: what
+/// failed, the table, and where the settings came from with the variables
+/// that change them.
+fn failure_text(report: &Report, env: &Environment, code: &Audit) -> String {
+    let mut out = failure_head(report);
+    let _ = writeln!(
+        out,
+        "replay: seed {} (PLUMBLINE_SEED={} or `seed = {}`)",
+        report.seed, report.seed, report.seed
+    );
+    out.push_str(&env.explain(code));
+    out
+}
+
+/// Prints the report in the environment's format and, with a report
+/// directory, writes `<stem>.json` and `<stem>.md` there (`unique`: a
+/// second audit of the same layer in the same test gets its own files).
+fn record(env: &Environment, report: &Report, unique: bool) -> Result<(), Error> {
+    match env.format {
+        PrintFormat::Table => println!("{}", table(report, &stdout_style(env.color))),
+        PrintFormat::Markdown => println!("{}", markdown(report)),
+        PrintFormat::Json => println!("{}", files::json(report)),
+        _ => {}
+    }
+    if let Some(dir) = &env.report_dir {
+        files::write(dir, &files::stem(report, unique), report)?;
+    }
+    Ok(())
 }
 
 /// How a report maps onto a property-test case.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[non_exhaustive]
 pub enum CaseOutcome {
     /// The backward agrees (kinks, if any, have analytic values that fit
     /// between the one-sided derivatives).
@@ -132,25 +232,7 @@ pub enum CaseOutcome {
 
 impl CaseOutcome {
     /// Classifies a report.
-    ///
-    /// ```
-    /// # use plumbline::*;
-    /// # struct Twice;
-    /// # impl Layer for Twice {
-    /// #     type Real = f64;
-    /// #     fn signature(&self) -> Signature { Signature::new().input("x", "n").output("y", "n") }
-    /// #     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> { vec![a.input(0).map(|x| 2.0 * x)] }
-    /// #     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
-    /// #         Gradients::from(vec![g[0].map(|g| 2.0 * g)])
-    /// #     }
-    /// # }
-    /// let x = Tensor::new(vec![2], vec![1.0, 2.0])?;
-    /// let report = Audit::new().run(&Twice, &Args::new(vec![x], vec![]))?;
-    /// assert_eq!(CaseOutcome::of(&report), CaseOutcome::Pass);
-    /// # Ok::<(), plumbline::Error>(())
-    /// ```
     pub fn of(report: &Report) -> CaseOutcome {
-        use crate::report::{ElementStatus, Verdict};
         let unfit_kink = |s: &ElementStatus| matches!(s, ElementStatus::Kink { fits: false, .. });
         let mut kinked = false;
         for row in &report.rows {
@@ -158,13 +240,15 @@ impl CaseOutcome {
             kinked |= row_kinks;
             let real = match row.verdict {
                 Verdict::Agrees => false,
-                Verdict::Missing | Verdict::WrongShape => true,
                 // Failing only because kinks fail is not a real failure;
                 // no failing element and no kink means the layer is not
                 // deterministic, which is.
                 Verdict::Disagrees => {
-                    row.elements.iter().any(|e| e.status.is_failure()) || !row_kinks
+                    row.elements.iter().any(|e| e.status.is_failure())
+                        || row.joint_kink.is_some()
+                        || !row_kinks
                 }
+                _ => true,
             };
             if real {
                 return CaseOutcome::Fail;
@@ -180,37 +264,42 @@ impl CaseOutcome {
 
 /// Audits one property-test case, with settings from the environment.
 ///
-/// Returns the report when the backward agrees;
+/// Returns the report when the backward agrees (as [`Passed`], which may
+/// be dropped);
 /// [`TestCaseError::fail`](proptest::test_runner::TestCaseError::fail) with
 /// the whole failure message (table, seed, variables) when it does not, so
 /// proptest shrinks the input and prints the minimal case with the table;
 /// [`TestCaseError::reject`](proptest::test_runner::TestCaseError::reject)
 /// when the input sits on a kink that the analytic value does not fit (see
-/// [`CaseOutcome`]). A misuse [`Error`](crate::Error) fails the case with
-/// its message; inside `proptest!` use `?` on the result.
+/// [`CaseOutcome`]). A misuse [`Error`](crate::Error) (or a panic in the
+/// layer) fails the case with its message; inside `proptest!` use `?`.
 ///
 /// Only failing cases are printed (`PLUMBLINE_FORMAT`) and written to
 /// `PLUMBLINE_REPORT_DIR`; each overwrites the last, so after shrinking the
 /// files hold the minimal failing case.
 ///
 /// ```
-/// use plumbline::{check_layer, strategy, Args, GenericLayer, Gradients, Scalar, Signature, Tensor};
+/// use plumbline::prelude::*;
+/// use plumbline::{check_layer, strategy};
 /// use proptest::prelude::*;
 ///
 /// /// Hive temperature in °C from a thermistor reading: y = 40·x − 10.
 /// struct Thermistor;
 ///
-/// impl GenericLayer for Thermistor {
+/// impl Layer for Thermistor {
 ///     type Real = f64;
 ///     fn signature(&self) -> Signature {
 ///         Signature::new().input("reading", "hive, sensor").output("celsius", "hive, sensor")
 ///     }
+///     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
+///         Gradients::from(vec![g[0].map(|g| 40.0 * g)])
+///     }
+/// }
+///
+/// impl GenericForward for Thermistor {
 ///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
 ///         let (k, c) = (T::from(40.0).unwrap(), T::from(10.0).unwrap());
 ///         vec![a.input(0).map(|x| k * x - c)]
-///     }
-///     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
-///         Gradients::from(vec![g[0].map(|g| 40.0 * g)])
 ///     }
 /// }
 ///
@@ -224,10 +313,10 @@ impl CaseOutcome {
 ///     .unwrap();
 /// ```
 #[cfg(feature = "proptest")]
-pub fn check_layer<L: Layer + ?Sized>(
+pub fn check_layer<L: Forward + ?Sized>(
     layer: &L,
-    args: &crate::layer::Args<L::Real>,
-) -> Result<Report, proptest::test_runner::TestCaseError> {
+    args: &Args<L::Real>,
+) -> Result<Passed, proptest::test_runner::TestCaseError> {
     check_layer_with(layer, args, |audit| audit)
 }
 
@@ -235,29 +324,26 @@ pub fn check_layer<L: Layer + ?Sized>(
 /// the environment's defaults and returns it with the test's own settings
 /// (`|a| a.margin(8.0)`), before the environment's overrides apply.
 #[cfg(feature = "proptest")]
-pub fn check_layer_with<L: Layer + ?Sized>(
+pub fn check_layer_with<L: Forward + ?Sized>(
     layer: &L,
-    args: &crate::layer::Args<L::Real>,
-    configure: impl FnOnce(Audit) -> Audit,
-) -> Result<Report, proptest::test_runner::TestCaseError> {
+    args: &Args<L::Real>,
+    configure: impl Fn(Audit) -> Audit,
+) -> Result<Passed, proptest::test_runner::TestCaseError> {
     use proptest::test_runner::TestCaseError;
     let env = Environment::from_env()?;
-    let code_settings = configure(Audit::with_settings(env.defaults()))
-        .settings()
-        .clone();
-    let report = Audit::with_settings(env.overrides(code_settings.clone())).run(layer, args)?;
+    let report = audit_with_env(layer, args, &env, &configure)?;
     match CaseOutcome::of(&report) {
-        CaseOutcome::Pass => Ok(report),
+        CaseOutcome::Pass => Ok(Passed(report)),
         CaseOutcome::Reject => Err(TestCaseError::reject(format!(
             "`{}`: an element sits on a kink the analytic value does not fit",
             report.layer
         ))),
         CaseOutcome::Fail => {
-            env.record(&report)?;
+            record(&env, &report, false)?;
             Err(TestCaseError::fail(failure_text(
                 &report,
                 &env,
-                &code_settings,
+                &configure(Audit::new()),
             )))
         }
     }

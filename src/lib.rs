@@ -11,28 +11,31 @@
 //!
 //! # From the top
 //!
-//! * [`Layer`] is what you implement: a [`Signature`] naming the tensors, a
-//!   `forward`, and a hand-written `backward` returning [`Gradients`]. If the
-//!   forward can be written for any [`Scalar`], implement [`GenericLayer`]
-//!   instead and the audit gets exact complex-step references for free,
-//!   even for `f32` layers.
+//! * [`Layer`] is what you implement: a [`Signature`] naming the tensors and
+//!   a hand-written `backward` returning [`Gradients`]; plus the forward,
+//!   either [`GenericForward`] (written once for any [`Scalar`]: the audit
+//!   then gets exact complex-step references for free, even for `f32`
+//!   layers) or [`Forward`] (one precision only, audited with Ridders'
+//!   method). The three traits share no method name, so
+//!   `use plumbline::prelude::*` brings them all without ambiguity.
 //! * [`Audit`] is a builder of settings whose [`run`](Audit::run) checks a
 //!   layer at given [`Args`] and returns a [`Report`]. The audit computes;
 //!   it never prints.
 //! * [`Report`] holds one [`Row`] per tensor, worst first, with the worst
 //!   element, the bound that applied, a [`Verdict`] and a [`Diagnosis`].
 //!   `Display` renders the aligned table; [`Report::assert_passed`] panics
-//!   with it.
+//!   with it. In tests, [`assert_backward!`] and [`check_layer`] (for
+//!   proptest) add the `PLUMBLINE_*` environment ([`env`]) for CI.
 //!
 //! # Example
 //!
 //! ```
-//! use plumbline::{Args, Audit, GenericLayer, Gradients, Scalar, Signature, Tensor};
+//! use plumbline::prelude::*;
 //!
 //! /// y = w·x + b for a batch of rows x.
 //! struct Dense;
 //!
-//! impl GenericLayer for Dense {
+//! impl Layer for Dense {
 //!     type Real = f64;
 //!     fn signature(&self) -> Signature {
 //!         Signature::new()
@@ -41,28 +44,23 @@
 //!             .param("b", "out")
 //!             .output("y", "batch, out")
 //!     }
+//!     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+//!         let (x, w, g) = (a.input(0), a.param(0), &up[0]);
+//!         let (n, i, o) = (x.shape()[0], x.shape()[1], w.shape()[0]);
+//!         let dx = Tensor::from_fn(vec![n, i], |ix| (0..o).map(|r| g[[ix[0], r]] * w[[r, ix[1]]]).sum());
+//!         let dw = Tensor::from_fn(vec![o, i], |ix| (0..n).map(|s| g[[s, ix[0]]] * x[[s, ix[1]]]).sum());
+//!         let db = Tensor::from_fn(vec![o], |ix| (0..n).map(|s| g[[s, ix[0]]]).sum());
+//!         Gradients::from(vec![dx, dw, db])
+//!     }
+//! }
+//!
+//! impl GenericForward for Dense {
 //!     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
 //!         let (x, w, b) = (a.input(0), a.param(0), a.param(1));
 //!         let (n, o) = (x.shape()[0], w.shape()[0]);
 //!         vec![Tensor::from_fn(vec![n, o], |ix| {
-//!             let mut s = b.data()[ix[1]];
-//!             for k in 0..x.shape()[1] {
-//!                 s += w.get(&[ix[1], k]).unwrap() * x.get(&[ix[0], k]).unwrap();
-//!             }
-//!             s
+//!             (0..x.shape()[1]).fold(b[[ix[1]]], |s, k| s + w[[ix[1], k]] * x[[ix[0], k]])
 //!         })]
-//!     }
-//!     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
-//!         let (x, w, g) = (a.input(0), a.param(0), &up[0]);
-//!         let (n, i, o) = (x.shape()[0], x.shape()[1], w.shape()[0]);
-//!         let dx = Tensor::from_fn(vec![n, i], |ix| {
-//!             (0..o).map(|r| g.get(&[ix[0], r]).unwrap() * w.get(&[r, ix[1]]).unwrap()).sum()
-//!         });
-//!         let dw = Tensor::from_fn(vec![o, i], |ix| {
-//!             (0..n).map(|s| g.get(&[s, ix[0]]).unwrap() * x.get(&[s, ix[1]]).unwrap()).sum()
-//!         });
-//!         let db = Tensor::from_fn(vec![o], |ix| (0..n).map(|s| g.get(&[s, ix[0]]).unwrap()).sum());
-//!         Gradients::from(vec![dx, dw, db])
 //!     }
 //! }
 //!
@@ -75,64 +73,75 @@
 //! # Ok::<(), plumbline::Error>(())
 //! ```
 //!
+//! # Modules
+//! The root holds what a first test names; the rest lives in modules named
+//! for what they hold: [`scalar`] (the scalar traits and the complex-step
+//! number), [`scheme`] (difference schemes on plain functions), [`audit`]
+//! (progress, defaults), [`report`] (what a row holds), [`render`] (tables,
+//! Markdown, JSON, colour), [`env`] (the `PLUMBLINE_*` variables),
+//! [`strategy`] (proptest), and [`prelude`].
+//!
 //! # Features
 //! * `proptest` (default): strategies and a proptest-friendly entry point.
 //! * `ndarray`: conversions between [`Tensor`] and `ndarray::ArrayD`.
-//! * `gallery`: correct reference layers and planted bugs, as models.
+//! * `gallery`: correct reference layers and planted bugs, as models, and
+//!   random layers from primitives for stress tests.
 #![deny(missing_docs)]
+#![forbid(unsafe_code)]
 
 /// The README's examples, compiled and run as doctests.
 #[cfg(doctest)]
 #[doc = include_str!("../README.md")]
 pub struct ReadmeDoctests;
 
-mod audit;
-mod complex_step;
+#[cfg(feature = "ndarray")]
+mod adapters;
+pub mod audit;
+mod compare;
 mod diagnosis;
-mod env;
+pub mod env;
 mod error;
 mod format;
-/// Correct reference layers with hand-written backward passes, and planted
-/// bugs in them (feature `gallery`).
+/// Correct reference layers with hand-written backward passes, planted
+/// bugs in them, and random layers for stress tests (feature `gallery`).
 #[cfg(feature = "gallery")]
 pub mod gallery;
 mod harness;
 mod layer;
-#[cfg(feature = "ndarray")]
-mod ndarray_adapter;
-mod render;
-mod report;
-mod scalar;
-mod scheme;
+pub mod render;
+pub mod report;
+pub mod scalar;
+pub mod scheme;
+mod signature;
 #[cfg(feature = "proptest")]
 pub mod strategy;
 mod tensor;
-mod terminal;
 mod tolerance;
 
-pub use audit::{Audit, Settings, COMPLEX_STEP, DEFAULT_SEED};
-pub use complex_step::{complex_step_derivative, ComplexStep};
+pub use audit::Audit;
 pub use diagnosis::Diagnosis;
-pub use env::{
-    Environment, PrintFormat, COLOR_VAR, FORMAT_VAR, KINKS_FAIL_VAR, MARGIN_FACTOR_VAR, MARGIN_VAR,
-    MAX_ELEMENTS_VAR, REPORT_DIR_VAR, SCHEME_VAR, SEED_VAR,
-};
 pub use error::Error;
-#[doc(hidden)]
-pub use harness::__assert_backward;
-pub use harness::CaseOutcome;
 #[cfg(feature = "proptest")]
-pub use harness::{check_layer, check_layer_with};
-pub use layer::{
-    Args, Dim, GenericLayer, Gradients, Layer, ReferenceForward, Role, Signature, Slot,
-};
-pub use render::{failure_message, markdown, table, Style};
-pub use report::{ElementCheck, ElementStatus, JointKink, Report, Row, Verdict, Worst};
+pub use harness::check_layer;
+#[doc(hidden)]
+pub use harness::{__Audited, __assert_backward};
+pub use layer::{Args, Forward, GenericForward, Gradients, Layer};
+pub use report::{Report, Row, Verdict};
 pub use scalar::{Real, Scalar};
-pub use scheme::{
-    central_difference, one_sided_derivatives, ridders_derivative, Estimate, KinkProbe, Scheme,
-    INCONCLUSIVE,
-};
-pub use tensor::{Index, Tensor};
-pub use terminal::{stdout_style, terminal_width, write_table, ColorChoice};
-pub use tolerance::{Tolerance, DEFAULT_MARGIN, ROUNDING_ULPS};
+pub use scheme::Scheme;
+pub use signature::Signature;
+pub use tensor::Tensor;
+
+/// Everything a layer file and its tests usually name, in one `use`.
+///
+/// ```
+/// use plumbline::prelude::*;
+/// let _ = Audit::new().seed(3);
+/// ```
+pub mod prelude {
+    pub use crate::assert_backward;
+    pub use crate::{
+        Args, Audit, Forward, GenericForward, Gradients, Layer, Real, Report, Scalar, Scheme,
+        Signature, Tensor,
+    };
+}

@@ -1,47 +1,54 @@
 //! The audit's result: plain data, one row per checked tensor, worst first.
-//! Rendering lives in `render`; nothing here prints.
+//! Nothing here renders or prints; `render` reads it.
 
-use std::fmt;
+pub use crate::compare::{ElementCheck, ElementStatus, JointKink};
+pub use crate::diagnosis::summary::Verdict;
+pub use crate::signature::Role;
+pub use crate::tensor::MultiIndex;
 
 use crate::diagnosis::Diagnosis;
-use crate::layer::Role;
-use crate::scheme::{KinkProbe, Scheme};
-use crate::tensor::Index;
+use crate::scheme::Scheme;
 use crate::tolerance::Tolerance;
 
 /// What an audit found, for every differentiable input and parameter.
 ///
 /// `Display` renders the aligned plain-text table (worst row first), so
-/// `{}` in a panic message shows everything.
+/// `{}` in a panic message shows everything. The JSON form (`serde`) holds
+/// the same words as the table and reads back into an identical report,
+/// NaN and infinities included (they are written as the strings `"NaN"`,
+/// `"inf"`, `"-inf"`).
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+#[must_use = "a report carries the verdict: call `assert_passed()` or check `passed()`"]
+#[non_exhaustive]
 pub struct Report {
     /// The layer's name (its type name unless set with [`Audit::name`](crate::Audit::name)).
     pub layer: String,
-    /// The layer's precision: `f32` or `f64`.
-    pub precision: String,
-    /// The precision the reference derivatives were computed in.
-    pub reference_precision: String,
     /// The seed of the random upstream gradient; replays the audit.
     pub seed: u64,
-    /// The bound rule in force.
-    pub tolerance: Tolerance,
     /// One row per differentiable tensor, worst first.
     pub rows: Vec<Row>,
+    /// Things the audit noticed about the layer or the settings, e.g. a
+    /// generic forward that drops the complex step.
+    #[serde(default)]
+    pub notes: Vec<String>,
     /// Forward evaluations spent (all precisions).
     pub forward_evals: usize,
     /// Backward evaluations spent.
     pub backward_evals: usize,
+    /// The layer's precision: `f32` or `f64`.
+    pub(crate) precision: String,
+    /// The precision the reference derivatives were computed in.
+    pub(crate) reference_precision: String,
+    /// The bound rule in force.
+    pub(crate) tolerance: Tolerance,
     /// Whether elements at a kink that the analytic value does not fit fail
     /// the audit.
-    pub kinks_fail: bool,
-    /// Things the audit noticed about the layer itself, e.g. a generic
-    /// forward that drops the complex step.
-    #[serde(default)]
-    pub notes: Vec<String>,
+    pub(crate) kinks_fail: bool,
 }
 
 /// The finding for one input or parameter tensor.
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+#[non_exhaustive]
 pub struct Row {
     /// The tensor's name from the signature.
     pub name: String,
@@ -55,23 +62,34 @@ pub struct Row {
     pub scheme: Scheme,
     /// Elements compared.
     pub checked: usize,
-    /// Elements in the tensor (more than `checked` when
-    /// [`Audit::max_elements`](crate::Audit::max_elements) sampled them).
-    pub of: usize,
-    /// Elements that disagree (or are not finite).
-    pub disagreeing: usize,
+    /// Elements in the tensor (more than `checked` when only a sample was
+    /// compared, see [`Audit::max_elements`](crate::Audit::max_elements)).
+    pub total: usize,
+    /// Elements that fail (beyond their bound, or not finite).
+    pub failing: usize,
     /// Elements at a non-differentiable point.
     pub kinks: usize,
-    /// The element furthest beyond its bound (or the worst, if all agree).
+    /// Elements not compared because they are ±∞ or NaN (a masked logit);
+    /// their gradient must still be finite.
+    #[serde(default)]
+    pub unchecked: usize,
+    /// Elements that agree within a wide bound: the reference's own error
+    /// was above 1% of the derivative there.
+    #[serde(default)]
+    pub wide: usize,
+    /// The element furthest beyond its bound (or the closest to it, if all
+    /// agree).
     pub worst: Option<Worst>,
     /// Largest |analytic − numeric|.
+    #[serde(with = "float_text")]
     pub max_abs_error: f64,
     /// Largest |a − n| / max(|a|, |n|) over elements.
+    #[serde(with = "float_text")]
     pub max_rel_error: f64,
     /// The row's verdict.
     pub verdict: Verdict,
-    /// Elements at kinks whose analytic values fit one by one but not
-    /// together (e.g. a max-pool tie whose gradient went to every maximum).
+    /// Two elements at interacting kinks whose analytic values fit one by
+    /// one but not together.
     pub joint_kink: Option<JointKink>,
     /// What kind of bug the numbers point to, if any.
     pub diagnosis: Option<Diagnosis>,
@@ -80,124 +98,21 @@ pub struct Row {
     pub elements: Vec<ElementCheck>,
 }
 
-/// A group of kink elements whose analytic values do not add up to a value
-/// between the one-sided derivatives of moving them together.
-#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
-pub struct JointKink {
-    /// Elements in the group (every kink element of the tensor).
-    pub elements: usize,
-    /// Σ analytic over the group.
-    pub analytic_sum: f64,
-    /// One-sided derivative of the joint move from the left.
-    pub left: f64,
-    /// One-sided derivative of the joint move from the right.
-    pub right: f64,
-}
-
 /// The worst element of a row.
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+#[non_exhaustive]
 pub struct Worst {
     /// Its multi-index.
-    pub index: Index,
+    pub index: MultiIndex,
     /// The backward's value.
+    #[serde(with = "float_text")]
     pub analytic: f64,
     /// The reference value.
+    #[serde(with = "float_text")]
     pub numeric: f64,
     /// The bound that applied.
+    #[serde(with = "float_text")]
     pub bound: f64,
-}
-
-/// A row's verdict.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
-#[serde(rename_all = "kebab-case")]
-pub enum Verdict {
-    /// Every element is within its bound.
-    Agrees,
-    /// Some element is beyond its bound or not finite.
-    Disagrees,
-    /// The gradient's shape differs from the tensor's.
-    WrongShape,
-    /// The backward returned no gradient for this tensor.
-    Missing,
-}
-
-impl Verdict {
-    /// `true` only for [`Verdict::Agrees`].
-    pub fn is_pass(self) -> bool {
-        self == Verdict::Agrees
-    }
-
-    /// The word shown in tables.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Verdict::Agrees => "ok",
-            Verdict::Disagrees => "FAIL",
-            Verdict::WrongShape => "SHAPE",
-            Verdict::Missing => "MISSING",
-        }
-    }
-}
-
-impl fmt::Display for Verdict {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(self.as_str())
-    }
-}
-
-/// One element's comparison.
-#[derive(Clone, Debug, PartialEq)]
-pub struct ElementCheck {
-    /// Its flat (row-major) position in the tensor.
-    pub index: usize,
-    /// The backward's value (NaN when no gradient of the right shape exists).
-    pub analytic: f64,
-    /// The reference value.
-    pub numeric: f64,
-    /// The reference's estimated error.
-    pub error: f64,
-    /// Σ|terms| of the derivative (see [`Estimate::scale`](crate::Estimate::scale)).
-    pub scale: f64,
-    /// The bound that applied.
-    pub bound: f64,
-    /// The outcome.
-    pub status: ElementStatus,
-}
-
-/// The outcome for one element.
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub enum ElementStatus {
-    /// Within the bound.
-    Agrees,
-    /// Beyond the bound.
-    Disagrees,
-    /// Analytic or numeric value is NaN or infinite.
-    NotFinite,
-    /// Within the bound, but the reference's truncation error is too large
-    /// to tell a right value from a wrong one (counts as a failure).
-    Inconclusive,
-    /// At a non-differentiable point: the one-sided derivatives differ.
-    Kink {
-        /// One-sided derivatives there.
-        probe: KinkProbe,
-        /// The analytic value lies between them (a valid one-sided
-        /// derivative or subgradient).
-        fits: bool,
-    },
-}
-
-impl ElementStatus {
-    /// `true` for a kink (the element is listed apart).
-    pub fn is_kink(self) -> bool {
-        matches!(self, ElementStatus::Kink { .. })
-    }
-
-    /// `true` for `Disagrees`, `NotFinite` and `Inconclusive`.
-    pub fn is_failure(self) -> bool {
-        matches!(
-            self,
-            ElementStatus::Disagrees | ElementStatus::NotFinite | ElementStatus::Inconclusive
-        )
-    }
 }
 
 impl Report {
@@ -217,33 +132,117 @@ impl Report {
         self.rows.iter().find(|r| r.name == name)
     }
 
-    /// Panics with the whole table and the seed unless the audit passed.
-    ///
-    /// ```should_panic
-    /// # use plumbline::*;
-    /// # struct Bad;
-    /// # impl Layer for Bad {
-    /// #     type Real = f64;
-    /// #     fn signature(&self) -> Signature { Signature::new().input("x", "n").output("y", "n") }
-    /// #     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> { vec![a.input(0).map(|x| 3.0 * x)] }
-    /// #     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
-    /// #         Gradients::from(vec![g[0].map(|g| -3.0 * g)])
-    /// #     }
-    /// # }
-    /// let x = Tensor::new(vec![2], vec![1.0, 2.0]).unwrap();
-    /// let report = Audit::new().run(&Bad, &Args::new(vec![x], vec![])).unwrap();
-    /// report.assert_passed(); // panics: sign flipped
-    /// ```
-    #[track_caller]
-    pub fn assert_passed(&self) {
-        if !self.passed() {
-            panic!("{}", crate::render::failure_message(self));
-        }
+    /// The layer's precision: `"f32"` or `"f64"`.
+    pub fn precision(&self) -> &str {
+        &self.precision
+    }
+
+    /// The precision the references were computed in.
+    pub fn reference_precision(&self) -> &str {
+        &self.reference_precision
+    }
+
+    /// The bound rule in force, in words.
+    pub fn bound_rule(&self) -> String {
+        self.tolerance.describe()
+    }
+
+    /// The margin in force (multiple of the error bar).
+    pub fn margin(&self) -> f64 {
+        self.tolerance.margin
+    }
+
+    /// The fixed bounds in force, if any: (absolute, relative).
+    pub fn fixed_bounds(&self) -> Option<(Option<f64>, Option<f64>)> {
+        self.tolerance
+            .is_fixed()
+            .then_some((self.tolerance.max_absolute, self.tolerance.max_relative))
+    }
+
+    /// Whether elements at a kink that the analytic value does not fit
+    /// fail the audit.
+    pub fn kinks_fail(&self) -> bool {
+        self.kinks_fail
     }
 }
 
-impl fmt::Display for Report {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(&crate::render::table(self, &crate::render::Style::plain()))
+/// The report of an audit that passed, as [`assert_backward!`](crate::assert_backward)
+/// and [`check_layer`](crate::check_layer) return it: it derefs to the
+/// [`Report`], and unlike a bare `Report` it may be dropped without a
+/// warning (the verdict was already enforced).
+///
+/// ```
+/// # use plumbline::prelude::*;
+/// # struct Twice;
+/// # impl Layer for Twice {
+/// #     type Real = f64;
+/// #     fn signature(&self) -> Signature { Signature::new().input("x", "n").output("y", "n") }
+/// #     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
+/// #         Gradients::from(vec![g[0].map(|g| 2.0 * g)])
+/// #     }
+/// # }
+/// # impl Forward for Twice {
+/// #     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> { vec![a.input(0).map(|x| 2.0 * x)] }
+/// # }
+/// let args = Args::new(vec![Tensor::new(vec![2], vec![1.0, 2.0])?], vec![]);
+/// assert_backward!(Twice, &args); // dropped: fine
+/// let passed = assert_backward!(Twice, &args);
+/// assert_eq!(passed.rows.len(), 1); // or read it
+/// # Ok::<(), plumbline::Error>(())
+/// ```
+#[derive(Clone, Debug, PartialEq)]
+pub struct Passed(pub(crate) Report);
+
+impl Passed {
+    /// The report itself.
+    pub fn into_report(self) -> Report {
+        self.0
+    }
+}
+
+impl std::ops::Deref for Passed {
+    type Target = Report;
+    fn deref(&self) -> &Report {
+        &self.0
+    }
+}
+
+/// Serde for floats that may be NaN or infinite: finite values as JSON
+/// numbers, the others as the strings `"NaN"`, `"inf"`, `"-inf"`, so a
+/// report reads back into the identical value.
+pub(crate) mod float_text {
+    use serde::{Deserialize, Deserializer, Serializer};
+
+    pub fn serialize<S: Serializer>(x: &f64, s: S) -> Result<S::Ok, S::Error> {
+        if x.is_finite() {
+            s.serialize_f64(*x)
+        } else if x.is_nan() {
+            s.serialize_str("NaN")
+        } else if *x > 0.0 {
+            s.serialize_str("inf")
+        } else {
+            s.serialize_str("-inf")
+        }
+    }
+
+    #[derive(Deserialize)]
+    #[serde(untagged)]
+    enum Either {
+        Number(f64),
+        Text(String),
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+        match Either::deserialize(d)? {
+            Either::Number(x) => Ok(x),
+            Either::Text(t) => match t.as_str() {
+                "NaN" => Ok(f64::NAN),
+                "inf" => Ok(f64::INFINITY),
+                "-inf" => Ok(f64::NEG_INFINITY),
+                other => Err(serde::de::Error::custom(format!(
+                    "expected a number, \"NaN\", \"inf\" or \"-inf\", found \"{other}\""
+                ))),
+            },
+        }
     }
 }

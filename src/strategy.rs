@@ -35,8 +35,11 @@ use std::ops::RangeInclusive;
 use proptest::collection::vec;
 use proptest::strategy::{BoxedStrategy, Strategy};
 
-use crate::layer::{Args, Dim, Signature};
+pub use crate::harness::{check_layer_with, CaseOutcome};
+
+use crate::layer::{Args, Forward};
 use crate::scalar::Real;
+use crate::signature::{Dim, Signature};
 use crate::tensor::Tensor;
 
 /// The size range of a named dim that [`args_for`] is not given, and the
@@ -163,7 +166,7 @@ pub fn args_for<R: Real>(
 /// [`args_for`] with the signature and precision of `layer`.
 ///
 /// ```
-/// use plumbline::{strategy, Args, Gradients, Layer, Signature, Tensor};
+/// use plumbline::{strategy, Args, Forward, Gradients, Layer, Signature, Tensor};
 /// use proptest::strategy::{Strategy, ValueTree};
 ///
 /// /// Brood temperature above a set point: y = x − 34.5 (°C).
@@ -171,10 +174,13 @@ pub fn args_for<R: Real>(
 /// impl Layer for Offset {
 ///     type Real = f32;
 ///     fn signature(&self) -> Signature { Signature::new().input("x", "hive").output("y", "hive") }
-///     fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> { vec![a.input(0).map(|x| x - 34.5)] }
 ///     fn backward(&self, _: &Args<f32>, g: &[Tensor<f32>]) -> Gradients<f32> {
 ///         Gradients::from(vec![g[0].clone()])
 ///     }
+/// }
+///
+/// impl Forward for Offset {
+///     fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> { vec![a.input(0).map(|x| x - 34.5)] }
 /// }
 ///
 /// let mut runner = proptest::test_runner::TestRunner::deterministic();
@@ -182,7 +188,7 @@ pub fn args_for<R: Real>(
 ///     .new_tree(&mut runner).unwrap().current();
 /// assert_eq!(args.input(0).shape(), &[2]);
 /// ```
-pub fn layer_args<L: crate::layer::Layer + ?Sized>(
+pub fn layer_args<L: Forward + ?Sized>(
     layer: &L,
     sizes: &[(&str, RangeInclusive<usize>)],
     values: RangeInclusive<f64>,

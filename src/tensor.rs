@@ -1,8 +1,11 @@
-//! An owned, row-major tensor: a shape and its contiguous data.
+//! An owned, row-major tensor: a shape and its contiguous data, indexed by
+//! multi-index like the array crates (`t[[i, j]]`).
 
 use std::fmt;
+use std::ops::{Index, IndexMut};
 
 use crate::error::Error;
+use crate::format::shape_string;
 
 /// An owned, row-major (C order) tensor of scalars.
 ///
@@ -10,13 +13,18 @@ use crate::error::Error;
 /// position `(i * b + j) * c + k`. A rank-0 tensor (shape `[]`) holds one
 /// scalar.
 ///
-/// Constructors check that the data fits the shape and return an
-/// [`Error`] otherwise; accessors return `Option` rather than panic.
+/// [`Tensor::new`] checks that the data fits the shape and returns an
+/// [`Error`] otherwise. Indexing by a multi-index, `t[[i, j]]` or `t[ix]`
+/// with `ix: &[usize]`, panics on an index out of bounds or of the wrong
+/// rank, as slice indexing does; [`get`](Tensor::get) is the fallible path.
 ///
 /// ```
 /// use plumbline::Tensor;
-/// let t = Tensor::new(vec![2, 3], vec![1.0, 2.0, 3.0, 4.0, 5.0, 6.0])?;
-/// assert_eq!(t.get(&[1, 0]), Some(4.0));
+/// let mut t = Tensor::new(vec![2, 3], vec![1.0, 2.0, 3.0, 4.0, 5.0, 6.0])?;
+/// assert_eq!(t[[1, 0]], 4.0);
+/// t[[1, 0]] = 4.5;
+/// assert_eq!(t.get(&[1, 0]), Some(4.5));
+/// assert_eq!(t.get(&[2, 0]), None);
 /// assert_eq!(t.index_of(4).to_string(), "[1, 1]");
 /// assert!(Tensor::new(vec![2, 2], vec![1.0_f64]).is_err());
 /// # Ok::<(), plumbline::Error>(())
@@ -29,9 +37,17 @@ pub struct Tensor<T> {
 
 impl<T: Copy> Tensor<T> {
     /// A tensor from a shape and row-major data; errors if
-    /// `data.len()` is not the product of `shape`.
+    /// `data.len()` is not the product of `shape`, or if that product
+    /// overflows `usize`.
+    ///
+    /// ```
+    /// use plumbline::Tensor;
+    /// assert!(Tensor::new(vec![usize::MAX, 2], vec![0.0_f32]).is_err());
+    /// ```
     pub fn new(shape: Vec<usize>, data: Vec<T>) -> Result<Self, Error> {
-        let expected = shape.iter().product::<usize>();
+        let Some(expected) = element_count(&shape) else {
+            return Err(Error::ShapeOverflow { shape });
+        };
         if expected != data.len() {
             return Err(Error::DataLength {
                 shape,
@@ -44,13 +60,16 @@ impl<T: Copy> Tensor<T> {
 
     /// A tensor whose element at each multi-index is `f(index)`.
     ///
+    /// Panics if the shape's element count overflows `usize` (such a tensor
+    /// could not be allocated), as `Vec::with_capacity` does.
+    ///
     /// ```
     /// use plumbline::Tensor;
     /// let eye = Tensor::from_fn(vec![2, 2], |ix| if ix[0] == ix[1] { 1.0 } else { 0.0 });
     /// assert_eq!(eye.data(), &[1.0, 0.0, 0.0, 1.0]);
     /// ```
     pub fn from_fn(shape: Vec<usize>, mut f: impl FnMut(&[usize]) -> T) -> Self {
-        let n = shape.iter().product::<usize>();
+        let n = checked_count(&shape);
         let mut ix = vec![0; shape.len()];
         let mut data = Vec::with_capacity(n);
         for _ in 0..n {
@@ -66,14 +85,15 @@ impl<T: Copy> Tensor<T> {
         Tensor { shape, data }
     }
 
-    /// A tensor of the given shape filled with `value`.
+    /// A tensor of the given shape filled with `value`. Panics if the
+    /// element count overflows `usize`, as [`from_fn`](Tensor::from_fn) does.
     ///
     /// ```
     /// use plumbline::Tensor;
     /// assert_eq!(Tensor::full(vec![3], 0.5).data(), &[0.5, 0.5, 0.5]);
     /// ```
     pub fn full(shape: Vec<usize>, value: T) -> Self {
-        let n = shape.iter().product::<usize>();
+        let n = checked_count(&shape);
         Tensor {
             shape,
             data: vec![value; n],
@@ -102,28 +122,6 @@ impl<T: Copy> Tensor<T> {
     /// A mutable reference to the element at a multi-index.
     pub fn get_mut(&mut self, index: &[usize]) -> Option<&mut T> {
         self.offset(index).map(move |i| &mut self.data[i])
-    }
-
-    /// The flat position of a multi-index, or `None` if out of bounds.
-    ///
-    /// ```
-    /// use plumbline::Tensor;
-    /// let t = Tensor::full(vec![2, 3, 4], 0.0_f32);
-    /// assert_eq!(t.offset(&[1, 2, 3]), Some(23));
-    /// assert_eq!(t.offset(&[2, 0, 0]), None);
-    /// ```
-    pub fn offset(&self, index: &[usize]) -> Option<usize> {
-        if index.len() != self.shape.len() {
-            return None;
-        }
-        let mut flat = 0;
-        for (&i, &n) in index.iter().zip(&self.shape) {
-            if i >= n {
-                return None;
-            }
-            flat = flat * n + i;
-        }
-        Some(flat)
     }
 
     /// Applies `f` to every element, keeping the shape.
@@ -180,34 +178,110 @@ impl<T> Tensor<T> {
 
     /// The multi-index of a flat position (unchecked against the length:
     /// positions past the end wrap on the first axis).
-    pub fn index_of(&self, flat: usize) -> Index {
-        Index::from_flat(&self.shape, flat)
+    pub fn index_of(&self, flat: usize) -> MultiIndex {
+        MultiIndex::from_flat(&self.shape, flat)
+    }
+
+    fn offset_or_panic(&self, index: &[usize]) -> usize {
+        match self.offset(index) {
+            Some(i) => i,
+            None => panic!(
+                "index {} is out of bounds for a tensor of shape {}",
+                shape_string(index),
+                shape_string(&self.shape)
+            ),
+        }
+    }
+
+    /// The flat position of a multi-index, or `None` if out of bounds.
+    ///
+    /// ```
+    /// use plumbline::Tensor;
+    /// let t = Tensor::full(vec![2, 3, 4], 0.0_f32);
+    /// assert_eq!(t.offset(&[1, 2, 3]), Some(23));
+    /// assert_eq!(t.offset(&[2, 0, 0]), None);
+    /// ```
+    pub fn offset(&self, index: &[usize]) -> Option<usize> {
+        if index.len() != self.shape.len() {
+            return None;
+        }
+        let mut flat = 0;
+        for (&i, &n) in index.iter().zip(&self.shape) {
+            if i >= n {
+                return None;
+            }
+            flat = flat * n + i;
+        }
+        Some(flat)
+    }
+}
+
+/// The number of elements of a shape, `None` on overflow.
+fn element_count(shape: &[usize]) -> Option<usize> {
+    shape.iter().try_fold(1usize, |n, &d| n.checked_mul(d))
+}
+
+fn checked_count(shape: &[usize]) -> usize {
+    match element_count(shape) {
+        Some(n) => n,
+        None => panic!(
+            "a tensor of shape {} has more elements than usize can count",
+            shape_string(shape)
+        ),
+    }
+}
+
+impl<T, const N: usize> Index<[usize; N]> for Tensor<T> {
+    type Output = T;
+    fn index(&self, index: [usize; N]) -> &T {
+        &self.data[self.offset_or_panic(&index)]
+    }
+}
+
+impl<T, const N: usize> IndexMut<[usize; N]> for Tensor<T> {
+    fn index_mut(&mut self, index: [usize; N]) -> &mut T {
+        let i = self.offset_or_panic(&index);
+        &mut self.data[i]
+    }
+}
+
+impl<T> Index<&[usize]> for Tensor<T> {
+    type Output = T;
+    fn index(&self, index: &[usize]) -> &T {
+        &self.data[self.offset_or_panic(index)]
+    }
+}
+
+impl<T> IndexMut<&[usize]> for Tensor<T> {
+    fn index_mut(&mut self, index: &[usize]) -> &mut T {
+        let i = self.offset_or_panic(index);
+        &mut self.data[i]
     }
 }
 
 /// A multi-index into a tensor, rendered as `[i, j, k]` in reports.
 ///
 /// ```
-/// use plumbline::Index;
-/// let ix = Index::from_flat(&[2, 3], 5);
+/// use plumbline::report::MultiIndex;
+/// let ix = MultiIndex::from_flat(&[2, 3], 5);
 /// assert_eq!(ix.as_slice(), &[1, 2]);
 /// assert_eq!(ix.to_string(), "[1, 2]");
 /// ```
 #[derive(Clone, Debug, PartialEq, Eq, Hash, Default, serde::Serialize, serde::Deserialize)]
 #[serde(transparent)]
-pub struct Index(pub Vec<usize>);
+pub struct MultiIndex(pub Vec<usize>);
 
-impl Index {
+impl MultiIndex {
     /// The multi-index of flat position `flat` in a row-major tensor of
     /// `shape`.
-    pub fn from_flat(shape: &[usize], mut flat: usize) -> Index {
+    pub fn from_flat(shape: &[usize], mut flat: usize) -> MultiIndex {
         let mut ix = vec![0; shape.len()];
         for axis in (0..shape.len()).rev() {
             let n = shape[axis].max(1);
             ix[axis] = flat % n;
             flat /= n;
         }
-        Index(ix)
+        MultiIndex(ix)
     }
 
     /// The indices, one per axis.
@@ -216,22 +290,10 @@ impl Index {
     }
 }
 
-impl fmt::Display for Index {
+impl fmt::Display for MultiIndex {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str("[")?;
-        for (k, i) in self.0.iter().enumerate() {
-            if k > 0 {
-                f.write_str(", ")?;
-            }
-            write!(f, "{i}")?;
-        }
-        f.write_str("]")
+        f.write_str(&shape_string(&self.0))
     }
-}
-
-/// Renders a shape as `[2, 3]`.
-pub(crate) fn shape_string(shape: &[usize]) -> String {
-    Index(shape.to_vec()).to_string()
 }
 
 #[cfg(test)]

@@ -10,7 +10,8 @@
 #![allow(clippy::excessive_precision, clippy::approx_constant)]
 
 use num_traits::{Float, FloatConst, NumCast, ToPrimitive};
-use plumbline::{complex_step_derivative, ComplexStep, Scalar};
+use plumbline::scalar::{complex_step_derivative, ComplexStep};
+use plumbline::Scalar;
 
 /// Distance from `got` to `want` in units of the f64 spacing at `want`.
 fn ulps64(got: f64, want: f64) -> f64 {

@@ -22,7 +22,7 @@ fn correct_dense_passes_in_f64_and_f32_with_every_scheme() {
             .run(&Dense::<f32>::new(DenseBug::None), &dense_args(4, 3, 2, 2))
             .unwrap();
         assert!(r.passed(), "f32 {scheme}: {r}");
-        assert_eq!(r.precision, "f32");
+        assert_eq!(r.precision(), "f32");
     }
 }
 
@@ -192,11 +192,14 @@ fn complex_step_on_a_plain_layer_is_a_setting_error() {
         fn signature(&self) -> plumbline::Signature {
             plumbline::Signature::new().input("x", "n").output("y", "n")
         }
-        fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> {
-            vec![a.input(0).clone()]
-        }
         fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> plumbline::Gradients<f64> {
             plumbline::Gradients::from(vec![g[0].clone()])
+        }
+    }
+
+    impl plumbline::Forward for Plain {
+        fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> {
+            vec![a.input(0).clone()]
         }
     }
     let args = Args::new(vec![Tensor::full(vec![2], 1.0)], vec![]);
@@ -221,9 +224,9 @@ fn narrow_tables_keep_verdict_and_diagnosis_and_fit_the_width() {
         )
         .unwrap();
     for width in [80, 100] {
-        let text = plumbline::table(
+        let text = plumbline::render::table(
             &r,
-            &plumbline::Style {
+            &plumbline::render::Style {
                 color: false,
                 width: Some(width),
             },
@@ -242,9 +245,9 @@ fn narrow_tables_keep_verdict_and_diagnosis_and_fit_the_width() {
         );
     }
     // Wide enough: every column.
-    let text = plumbline::table(
+    let text = plumbline::render::table(
         &r,
-        &plumbline::Style {
+        &plumbline::render::Style {
             color: false,
             width: Some(200),
         },
@@ -265,10 +268,10 @@ fn sampling_bounds_the_cost_and_still_names_the_bug() {
         .unwrap();
     assert!(r.passed(), "{r}");
     let w = r.row("w").unwrap();
-    assert_eq!((w.checked, w.of), (40, 576));
+    assert_eq!((w.checked, w.total), (40, 576));
     assert!(r.to_string().contains("40/576"), "{r}");
     let b = r.row("b").unwrap();
-    assert_eq!((b.checked, b.of), (24, 24)); // small tensors are checked whole
+    assert_eq!((b.checked, b.total), (24, 24)); // small tensors are checked whole
     let full = Audit::new()
         .run(&Dense::<f64>::new(DenseBug::None), &args)
         .unwrap();

@@ -11,7 +11,7 @@ use std::collections::HashSet;
 use plumbline::gallery::{
     judge, registry, Case, LayerNorm, MaxPool2d, MaxPoolBug, SoftmaxCrossEntropy,
 };
-use plumbline::{Args, Audit, Layer, Scheme, Tensor};
+use plumbline::{Args, Audit, Forward, Layer, Scheme, Tensor};
 
 /// Random cases per correct layer and precision.
 const CASES: u64 = 300;
@@ -183,7 +183,7 @@ fn registry_is_complete_and_consistent() {
             "{}: {report}",
             c.label()
         );
-        assert_eq!(report.precision, c.precision);
+        assert_eq!(report.precision(), c.precision);
     }
 }
 

@@ -6,10 +6,9 @@
 mod hive;
 
 use hive::{hive_args, HiveBug, HiveScore, CORRECT};
-use plumbline::{
-    assert_backward, terminal_width, write_table, Audit, ColorChoice, Environment, Error,
-    PrintFormat, Report, Scheme, Style,
-};
+use plumbline::env::{Environment, PrintFormat};
+use plumbline::render::{terminal_width, write_table, ColorChoice, Style};
+use plumbline::{assert_backward, Audit, Error, Report, Scheme};
 
 fn lookup(pairs: &[(&str, &str)]) -> impl Fn(&str) -> Option<String> {
     let pairs: Vec<(String, String)> = pairs
@@ -38,7 +37,7 @@ fn bare_form_returns_the_report() {
     assert_eq!(report.rows.len(), 3);
     assert_eq!(
         report.seed,
-        process_env().seed.unwrap_or(plumbline::DEFAULT_SEED)
+        process_env().seed.unwrap_or(plumbline::audit::DEFAULT_SEED)
     );
     // Trailing comma accepted.
     let again = assert_backward!(CORRECT, &hive_args(3, 4),);
@@ -54,16 +53,17 @@ fn key_value_forms_map_onto_the_builder() {
 
     let r = assert_backward!(CORRECT, &args, scheme = Scheme::Ridders, margin = 8.0,);
     assert!(r.rows.iter().all(|row| row.scheme == Scheme::Ridders));
-    assert_eq!(r.tolerance.margin, 8.0 * env.margin_factor.unwrap_or(1.0));
+    assert_eq!(r.margin(), 8.0 * env.margin_factor.unwrap_or(1.0));
 
-    let r = assert_backward!(CORRECT, &args, epsilon = 1e-9, max_relative = 1e-7);
+    let r = assert_backward!(CORRECT, &args, max_absolute = 1e-9, max_relative = 1e-7);
+    let factor = env.margin_factor.unwrap_or(1.0);
     assert_eq!(
-        r.tolerance.epsilon,
-        Some(1e-9 * env.margin_factor.unwrap_or(1.0))
+        r.fixed_bounds(),
+        Some((Some(1e-9 * factor), Some(1e-7 * factor)))
     );
 
     let r = assert_backward!(CORRECT, &args, kinks_fail = true, name = "hive score");
-    assert!(r.kinks_fail);
+    assert!(r.kinks_fail());
     assert_eq!(r.layer, "hive score");
 
     // The layer may be any expression.
@@ -83,7 +83,7 @@ fn a_wrong_gradient_panics_naming_the_tensor() {
 }
 
 #[test]
-#[should_panic(expected = "(set PLUMBLINE_SEED=")]
+#[should_panic(expected = "replay: seed 11 (PLUMBLINE_SEED=11")]
 fn a_failure_names_the_replay_variable() {
     assert_backward!(
         HiveScore {
@@ -148,22 +148,19 @@ fn every_variable_parses() {
         ("PLUMBLINE_FORMAT", "markdown"),
         ("PLUMBLINE_COLOR", "never"),
         ("PLUMBLINE_MAX_ELEMENTS", "32"),
+        ("PLUMBLINE_MAX_EVALUATIONS", "5000"),
     ]))
     .unwrap();
-    assert_eq!(
-        env,
-        Environment {
-            seed: Some(12345),
-            margin: Some(6.0),
-            margin_factor: Some(0.5),
-            scheme: Some(Scheme::Ridders),
-            kinks_fail: Some(true),
-            max_elements: Some(32),
-            report_dir: Some("target/audits".into()),
-            format: PrintFormat::Markdown,
-            color: ColorChoice::Never,
-        }
-    );
+    assert_eq!(env.seed, Some(12345));
+    assert_eq!(env.margin, Some(6.0));
+    assert_eq!(env.margin_factor, Some(0.5));
+    assert_eq!(env.scheme, Some(Scheme::Ridders));
+    assert_eq!(env.kinks_fail, Some(true));
+    assert_eq!(env.max_elements, Some(32));
+    assert_eq!(env.max_evaluations, Some(5000));
+    assert_eq!(env.report_dir, Some("target/audits".into()));
+    assert_eq!(env.format, PrintFormat::Markdown);
+    assert_eq!(env.color, ColorChoice::Never);
     // Unset and empty are the same: nothing set.
     assert_eq!(
         Environment::from_lookup(lookup(&[("PLUMBLINE_SEED", "")])).unwrap(),
@@ -202,6 +199,15 @@ fn invalid_values_name_the_variable() {
     }
 }
 
+/// Runs the correct hive layer with the audit the environment and code
+/// settings give, so the test reads the settings off the report.
+fn run_with(env: &Environment, configure: impl FnOnce(Audit) -> Audit) -> Report {
+    env.audit(configure)
+        .unwrap()
+        .run(&CORRECT, &hive_args(2, 2))
+        .unwrap()
+}
+
 #[test]
 fn code_beats_environment_beats_defaults_except_seed_and_factor() {
     let env = Environment::from_lookup(lookup(&[
@@ -211,25 +217,22 @@ fn code_beats_environment_beats_defaults_except_seed_and_factor() {
     ]))
     .unwrap();
     // Environment over defaults.
-    let s = env.audit(|a| a).settings().clone();
+    let r = run_with(&env, |a| a);
     assert_eq!(
-        (s.tolerance.margin, s.scheme, s.kinks_fail),
-        (6.0, Some(Scheme::Central), true)
+        (r.margin(), r.rows[0].scheme, r.kinks_fail()),
+        (6.0, Scheme::Central, true)
     );
-    assert_eq!(s.seed, plumbline::DEFAULT_SEED);
+    assert_eq!(r.seed, plumbline::audit::DEFAULT_SEED);
     // Code over environment.
-    let s = env
-        .audit(|a| {
-            a.margin(9.0)
-                .scheme(Scheme::Ridders)
-                .kinks_fail(false)
-                .seed(4)
-        })
-        .settings()
-        .clone();
+    let r = run_with(&env, |a| {
+        a.margin(9.0)
+            .scheme(Scheme::Ridders)
+            .kinks_fail(false)
+            .seed(4)
+    });
     assert_eq!(
-        (s.tolerance.margin, s.scheme, s.kinks_fail, s.seed),
-        (9.0, Some(Scheme::Ridders), false, 4)
+        (r.margin(), r.rows[0].scheme, r.kinks_fail(), r.seed),
+        (9.0, Scheme::Ridders, false, 4)
     );
 
     // The replay seed and the factor win over code.
@@ -238,29 +241,23 @@ fn code_beats_environment_beats_defaults_except_seed_and_factor() {
         ("PLUMBLINE_MARGIN_FACTOR", "2"),
     ]))
     .unwrap();
-    let s = env
-        .audit(|a| a.seed(4).margin(3.0).epsilon(1e-6))
-        .settings()
-        .clone();
-    assert_eq!(s.seed, 0xBEE);
-    assert_eq!(s.tolerance.margin, 6.0);
-    assert_eq!(s.tolerance.epsilon, Some(2e-6));
+    let r = run_with(&env, |a| a.seed(4).margin(3.0).max_absolute(1e-6));
+    assert_eq!(r.seed, 0xBEE);
+    assert_eq!(r.margin(), 6.0);
+    assert_eq!(r.fixed_bounds(), Some((Some(2e-6), None)));
 }
 
 #[test]
 fn a_tighter_factor_changes_the_outcome() {
-    // An f32 copy of the correct layer's gradient passes at factor 1 but
-    // not when every bound is scaled down a millionfold: the factor reaches
-    // the audit.
+    // The correct layer passes a fixed absolute bound of 1e-9, but not when
+    // every bound is scaled down a trillionfold: the factor reaches the
+    // audit.
     let env = Environment::from_lookup(lookup(&[("PLUMBLINE_MARGIN_FACTOR", "1e-12")])).unwrap();
-    let r = env
-        .audit(|a| a.epsilon(1e-9))
-        .run(&CORRECT, &hive_args(2, 2))
-        .unwrap();
-    let eps = r.tolerance.epsilon.unwrap();
-    assert!((eps - 1e-21).abs() < 1e-35, "{eps}");
+    let r = run_with(&env, |a| a.max_absolute(1e-9));
+    let (abs, _) = r.fixed_bounds().unwrap();
+    assert!((abs.unwrap() - 1e-21).abs() < 1e-35, "{abs:?}");
     let loose = Audit::new()
-        .epsilon(1e-9)
+        .max_absolute(1e-9)
         .run(&CORRECT, &hive_args(2, 2))
         .unwrap();
     assert!(loose.passed(), "{loose}");
@@ -426,10 +423,13 @@ fn exact_text_at_a_width() {
 
 #[test]
 fn max_elements_from_the_environment_is_a_default_code_overrides() {
-    let env = Environment::from_lookup(lookup(&[("PLUMBLINE_MAX_ELEMENTS", "16")])).unwrap();
-    assert_eq!(env.audit(|a| a).settings().max_elements, Some(16));
-    assert_eq!(
-        env.audit(|a| a.max_elements(4)).settings().max_elements,
-        Some(4)
-    );
+    let env = Environment::from_lookup(lookup(&[("PLUMBLINE_MAX_ELEMENTS", "2")])).unwrap();
+    // hive_args(3, 4): `w` has 4 × 4 = 16 elements.
+    let args = hive_args(3, 4);
+    let run =
+        |configure: fn(Audit) -> Audit| env.audit(configure).unwrap().run(&CORRECT, &args).unwrap();
+    let r = run(|a| a);
+    assert_eq!(r.row("w").unwrap().checked, 2);
+    let r = run(|a| a.max_elements(5));
+    assert_eq!(r.row("w").unwrap().checked, 5);
 }

@@ -10,7 +10,8 @@
 // Check values keep the digits of their source.
 #![allow(clippy::excessive_precision, clippy::approx_constant)]
 
-use plumbline::{central_difference, one_sided_derivatives, ridders_derivative, Scalar};
+use plumbline::scheme::{central_difference, one_sided_derivatives, ridders_derivative};
+use plumbline::Scalar;
 
 /// f(x) = eˣ / √(sin³x + cos³x) (Squire & Trapp 1998).
 fn test_fn(x: f64) -> f64 {

@@ -3,8 +3,9 @@
 use std::marker::PhantomData;
 
 use super::{affine, c, planted_bugs, register_generic, tensor, Case, Draw, Kind, Subject};
-use crate::layer::{Args, GenericLayer, Gradients, Signature};
+use crate::layer::{Args, GenericForward, Gradients, Layer};
 use crate::scalar::{Real, Scalar};
+use crate::signature::Signature;
 use crate::tensor::Tensor;
 
 planted_bugs! {
@@ -102,7 +103,7 @@ fn weights<T: Scalar>(q: &[T], k: &[T], t: usize, d: usize, cols: (usize, usize)
     p
 }
 
-impl<R: Real> GenericLayer for Attention<R> {
+impl<R: Real> Layer for Attention<R> {
     type Real = R;
 
     fn signature(&self) -> Signature {
@@ -112,25 +113,6 @@ impl<R: Real> GenericLayer for Attention<R> {
             .param("wk", "model, model")
             .param("wv", "model, model")
             .output("out", "token, model")
-    }
-
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let x = a.input(0);
-        let (t, d) = (x.shape()[0], x.shape()[1]);
-        let proj = |i: usize| affine(x.data(), a.param(i).data(), None, t, d, d);
-        let (q, k, v) = (proj(0), proj(1), proj(2));
-        let dh = self.head_width(d);
-        let mut out = vec![T::zero(); t * d];
-        for h in 0..d / dh {
-            let cols = (h * dh, (h + 1) * dh);
-            let p = weights(&q, &k, t, d, cols);
-            for r in 0..t {
-                for e in cols.0..cols.1 {
-                    out[r * d + e] = (0..t).map(|b| p[r * t + b] * v[b * d + e]).sum();
-                }
-            }
-        }
-        vec![tensor(vec![t, d], out)]
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
@@ -231,6 +213,27 @@ impl<R: Real> GenericLayer for Attention<R> {
         let mut grads = vec![tensor(vec![t, d], dx)];
         grads.extend(dws);
         Gradients::from(grads)
+    }
+}
+
+impl<R: Real> GenericForward for Attention<R> {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let x = a.input(0);
+        let (t, d) = (x.shape()[0], x.shape()[1]);
+        let proj = |i: usize| affine(x.data(), a.param(i).data(), None, t, d, d);
+        let (q, k, v) = (proj(0), proj(1), proj(2));
+        let dh = self.head_width(d);
+        let mut out = vec![T::zero(); t * d];
+        for h in 0..d / dh {
+            let cols = (h * dh, (h + 1) * dh);
+            let p = weights(&q, &k, t, d, cols);
+            for r in 0..t {
+                for e in cols.0..cols.1 {
+                    out[r * d + e] = (0..t).map(|b| p[r * t + b] * v[b * d + e]).sum();
+                }
+            }
+        }
+        vec![tensor(vec![t, d], out)]
     }
 }
 

@@ -3,8 +3,9 @@
 use std::marker::PhantomData;
 
 use super::{planted_bugs, register_generic, tensor, Case, Draw, Kind, Subject};
-use crate::layer::{Args, GenericLayer, Gradients, Signature};
+use crate::layer::{Args, GenericForward, Gradients, Layer};
 use crate::scalar::{Real, Scalar};
+use crate::signature::Signature;
 use crate::tensor::Tensor;
 
 planted_bugs! {
@@ -102,7 +103,7 @@ impl<R: Real> Conv2d<R> {
     }
 }
 
-impl<R: Real> GenericLayer for Conv2d<R> {
+impl<R: Real> Layer for Conv2d<R> {
     type Real = R;
 
     fn signature(&self) -> Signature {
@@ -111,39 +112,6 @@ impl<R: Real> GenericLayer for Conv2d<R> {
             .param("w", "filters, chan, k, k")
             .param("b", "filters")
             .output("y", "*")
-    }
-
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
-        let g = self.geometry(x, w);
-        let (xd, wd) = (x.data(), w.data());
-        let (s, p) = (self.stride, self.padding);
-        let mut y = vec![T::zero(); g.n * g.o * g.ho * g.wo];
-        for n in 0..g.n {
-            for o in 0..g.o {
-                for i in 0..g.ho {
-                    for j in 0..g.wo {
-                        let mut acc = b.data()[o];
-                        for c in 0..g.c {
-                            for u in 0..g.k {
-                                let Some(r) = self.source(i, u, g.h, s, p) else {
-                                    continue;
-                                };
-                                for v in 0..g.k {
-                                    let Some(q) = self.source(j, v, g.w, s, p) else {
-                                        continue;
-                                    };
-                                    acc += wd[((o * g.c + c) * g.k + u) * g.k + v]
-                                        * xd[((n * g.c + c) * g.h + r) * g.w + q];
-                                }
-                            }
-                        }
-                        y[((n * g.o + o) * g.ho + i) * g.wo + j] = acc;
-                    }
-                }
-            }
-        }
-        vec![tensor(vec![g.n, g.o, g.ho, g.wo], y)]
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
@@ -210,6 +178,41 @@ impl<R: Real> GenericLayer for Conv2d<R> {
             tensor(w.shape().to_vec(), dw),
             tensor(vec![g.o], db),
         ])
+    }
+}
+
+impl<R: Real> GenericForward for Conv2d<R> {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
+        let g = self.geometry(x, w);
+        let (xd, wd) = (x.data(), w.data());
+        let (s, p) = (self.stride, self.padding);
+        let mut y = vec![T::zero(); g.n * g.o * g.ho * g.wo];
+        for n in 0..g.n {
+            for o in 0..g.o {
+                for i in 0..g.ho {
+                    for j in 0..g.wo {
+                        let mut acc = b.data()[o];
+                        for c in 0..g.c {
+                            for u in 0..g.k {
+                                let Some(r) = self.source(i, u, g.h, s, p) else {
+                                    continue;
+                                };
+                                for v in 0..g.k {
+                                    let Some(q) = self.source(j, v, g.w, s, p) else {
+                                        continue;
+                                    };
+                                    acc += wd[((o * g.c + c) * g.k + u) * g.k + v]
+                                        * xd[((n * g.c + c) * g.h + r) * g.w + q];
+                                }
+                            }
+                        }
+                        y[((n * g.o + o) * g.ho + i) * g.wo + j] = acc;
+                    }
+                }
+            }
+        }
+        vec![tensor(vec![g.n, g.o, g.ho, g.wo], y)]
     }
 }
 

@@ -4,8 +4,9 @@ use std::cell::RefCell;
 use std::marker::PhantomData;
 
 use super::{affine, planted_bugs, register_generic, tensor, Case, Draw, Kind, Subject};
-use crate::layer::{Args, GenericLayer, Gradients, Signature};
+use crate::layer::{Args, GenericForward, Gradients, Layer};
 use crate::scalar::{Real, Scalar};
+use crate::signature::Signature;
 use crate::tensor::Tensor;
 
 planted_bugs! {
@@ -70,7 +71,7 @@ impl<R: Real> Dense<R> {
     }
 }
 
-impl<R: Real> GenericLayer for Dense<R> {
+impl<R: Real> Layer for Dense<R> {
     type Real = R;
 
     fn signature(&self) -> Signature {
@@ -79,13 +80,6 @@ impl<R: Real> GenericLayer for Dense<R> {
             .param("w", "out, in")
             .param("b", "out")
             .output("y", "batch, out")
-    }
-
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
-        let (n, i, o) = (x.shape()[0], x.shape()[1], w.shape()[0]);
-        let y = affine(x.data(), w.data(), Some(b.data()), n, i, o);
-        vec![tensor(vec![n, o], y)]
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
@@ -142,6 +136,15 @@ impl<R: Real> GenericLayer for Dense<R> {
             return Gradients::from(vec![Some(dx), None, Some(db)]);
         }
         Gradients::from(vec![dx, dw, db])
+    }
+}
+
+impl<R: Real> GenericForward for Dense<R> {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
+        let (n, i, o) = (x.shape()[0], x.shape()[1], w.shape()[0]);
+        let y = affine(x.data(), w.data(), Some(b.data()), n, i, o);
+        vec![tensor(vec![n, o], y)]
     }
 }
 

@@ -3,7 +3,8 @@
 use std::cell::RefCell;
 
 use super::{planted_bugs, tensor, Case, Draw, Kind, Subject};
-use crate::layer::{Args, Gradients, Layer, Signature};
+use crate::layer::{Args, Forward, Gradients, Layer};
+use crate::signature::Signature;
 use crate::tensor::Tensor;
 
 planted_bugs! {
@@ -72,17 +73,6 @@ impl Layer for Embedding {
             .output("y", "token, width")
     }
 
-    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
-        let (ids, table) = (a.input(0), a.param(0));
-        let (v, w) = (table.shape()[0], table.shape()[1]);
-        let mut y = Vec::with_capacity(ids.len() * w);
-        for &id in ids.data() {
-            let r = row(id, v);
-            y.extend_from_slice(&table.data()[r * w..(r + 1) * w]);
-        }
-        vec![tensor(vec![ids.len(), w], y)]
-    }
-
     fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
         let (ids, table) = (a.input(0), a.param(0));
         let (v, w) = (table.shape()[0], table.shape()[1]);
@@ -113,6 +103,19 @@ impl Layer for Embedding {
             dt = buf.clone();
         }
         Gradients::from(vec![tensor(vec![v, w], dt)])
+    }
+}
+
+impl Forward for Embedding {
+    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
+        let (ids, table) = (a.input(0), a.param(0));
+        let (v, w) = (table.shape()[0], table.shape()[1]);
+        let mut y = Vec::with_capacity(ids.len() * w);
+        for &id in ids.data() {
+            let r = row(id, v);
+            y.extend_from_slice(&table.data()[r * w..(r + 1) * w]);
+        }
+        vec![tensor(vec![ids.len(), w], y)]
     }
 }
 

@@ -2,8 +2,9 @@
 //! residual block, and a layer written for `f32` only.
 
 use super::{c, planted_bugs, Case, Draw, Kind, Subject};
-use crate::layer::{Args, Gradients, Layer, Signature};
+use crate::layer::{Args, Forward, Gradients, Layer};
 use crate::scalar::Scalar;
+use crate::signature::Signature;
 use crate::tensor::Tensor;
 
 planted_bugs! {
@@ -90,10 +91,6 @@ impl Layer for Gelu {
         Signature::new().input("x", "*").output("y", "*")
     }
 
-    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
-        vec![a.input(0).map(gelu)]
-    }
-
     fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
         let x = a.input(0);
         let dx = x.data().iter().zip(up[0].data()).map(|(&x, &g)| {
@@ -113,6 +110,12 @@ impl Layer for Gelu {
             g * d
         });
         Gradients::from(vec![super::tensor(x.shape().to_vec(), dx.collect())])
+    }
+}
+
+impl Forward for Gelu {
+    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
+        vec![a.input(0).map(gelu)]
     }
 }
 

@@ -3,8 +3,9 @@
 use std::marker::PhantomData;
 
 use super::{affine, planted_bugs, register_generic, sigmoid, tensor, Case, Draw, Kind, Subject};
-use crate::layer::{Args, GenericLayer, Gradients, Signature};
+use crate::layer::{Args, GenericForward, Gradients, Layer};
 use crate::scalar::{Real, Scalar};
+use crate::signature::Signature;
 use crate::tensor::Tensor;
 
 planted_bugs! {
@@ -94,7 +95,7 @@ fn step<T: Scalar>(a: &Args<T>) -> Step<T> {
     }
 }
 
-impl<R: Real> GenericLayer for GruCell<R> {
+impl<R: Real> Layer for GruCell<R> {
     type Real = R;
 
     fn signature(&self) -> Signature {
@@ -105,23 +106,6 @@ impl<R: Real> GenericLayer for GruCell<R> {
             .param("wh", "gates, hidden")
             .param("b", "gates")
             .output("h_next", "batch, hidden")
-    }
-
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let s = step(a);
-        let h = a.input(1).data();
-        let g3 = 3 * s.hd;
-        let mut out = vec![T::zero(); s.n * s.hd];
-        for r in 0..s.n {
-            for u in 0..s.hd {
-                let (o, hidx) = (r * g3, r * s.hd + u);
-                let rg = sigmoid(s.ax[o + u] + s.ah[o + u]);
-                let z = sigmoid(s.ax[o + s.hd + u] + s.ah[o + s.hd + u]);
-                let cand = (s.ax[o + 2 * s.hd + u] + rg * s.ah[o + 2 * s.hd + u]).tanh();
-                out[hidx] = (T::one() - z) * cand + z * h[hidx];
-            }
-        }
-        vec![tensor(vec![s.n, s.hd], out)]
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
@@ -203,6 +187,25 @@ impl<R: Real> GenericLayer for GruCell<R> {
             Some(dwh),
             Some(tensor(vec![g3], db)),
         ])
+    }
+}
+
+impl<R: Real> GenericForward for GruCell<R> {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let s = step(a);
+        let h = a.input(1).data();
+        let g3 = 3 * s.hd;
+        let mut out = vec![T::zero(); s.n * s.hd];
+        for r in 0..s.n {
+            for u in 0..s.hd {
+                let (o, hidx) = (r * g3, r * s.hd + u);
+                let rg = sigmoid(s.ax[o + u] + s.ah[o + u]);
+                let z = sigmoid(s.ax[o + s.hd + u] + s.ah[o + s.hd + u]);
+                let cand = (s.ax[o + 2 * s.hd + u] + rg * s.ah[o + 2 * s.hd + u]).tanh();
+                out[hidx] = (T::one() - z) * cand + z * h[hidx];
+            }
+        }
+        vec![tensor(vec![s.n, s.hd], out)]
     }
 }
 

@@ -54,7 +54,7 @@ use rand::{RngExt, SeedableRng};
 use crate::audit::Audit;
 use crate::diagnosis::Diagnosis;
 use crate::error::Error;
-use crate::layer::{Args, Layer};
+use crate::layer::{Args, Forward};
 use crate::report::Report;
 use crate::scalar::{Real, Scalar};
 use crate::tensor::Tensor;
@@ -229,9 +229,9 @@ pub struct Bug {
 /// A layer ready to audit, with its arguments, in one precision.
 pub enum Subject {
     /// An `f64` layer.
-    F64(Box<dyn Layer<Real = f64>>, Args<f64>),
+    F64(Box<dyn Forward<Real = f64>>, Args<f64>),
     /// An `f32` layer.
-    F32(Box<dyn Layer<Real = f32>>, Args<f32>),
+    F32(Box<dyn Forward<Real = f32>>, Args<f32>),
 }
 
 impl Subject {

@@ -5,8 +5,9 @@ use std::cell::RefCell;
 use std::marker::PhantomData;
 
 use super::{c, planted_bugs, register_generic, tensor, Case, Draw, Kind, Subject};
-use crate::layer::{Args, GenericLayer, Gradients, Signature};
+use crate::layer::{Args, GenericForward, Gradients, Layer};
 use crate::scalar::{Real, Scalar};
+use crate::signature::Signature;
 use crate::tensor::Tensor;
 
 /// The ε added to the variance (a common default).
@@ -202,33 +203,11 @@ fn scale_shift_backward<R: Real>(g: &[R], v: &[R], d: usize) -> (Vec<R>, Vec<R>)
     (dgamma, dbeta)
 }
 
-impl<R: Real> GenericLayer for LayerNorm<R> {
+impl<R: Real> Layer for LayerNorm<R> {
     type Real = R;
 
     fn signature(&self) -> Signature {
         norm_signature()
-    }
-
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, gamma, beta) = (a.input(0), a.param(0), a.param(1));
-        let (n, d) = (x.shape()[0], x.shape()[1]);
-        let groups = rows(n, d);
-        let mut stats = statistics(x.data(), &groups, NORM_EPS, 0);
-        if self.bug == Some(LayerNormBug::StaleStatistics) {
-            let mut cache = self.cache.borrow_mut();
-            match cache.as_ref() {
-                Some(saved) if saved.len() == stats.len() => {
-                    stats = saved.iter().map(|&(m, s)| (c(m), c(s))).collect();
-                }
-                _ => {
-                    let f = |v: T| v.to_f64().unwrap_or(f64::NAN);
-                    *cache = Some(stats.iter().map(|&(m, s)| (f(m), f(s))).collect());
-                }
-            }
-        }
-        let yhat = normalise(x.data(), &groups, &stats);
-        let y = scale_shift(&yhat, gamma.data(), beta.data(), d);
-        vec![tensor(vec![n, d], y)]
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
@@ -279,6 +258,30 @@ impl<R: Real> GenericLayer for LayerNorm<R> {
     }
 }
 
+impl<R: Real> GenericForward for LayerNorm<R> {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, gamma, beta) = (a.input(0), a.param(0), a.param(1));
+        let (n, d) = (x.shape()[0], x.shape()[1]);
+        let groups = rows(n, d);
+        let mut stats = statistics(x.data(), &groups, NORM_EPS, 0);
+        if self.bug == Some(LayerNormBug::StaleStatistics) {
+            let mut cache = self.cache.borrow_mut();
+            match cache.as_ref() {
+                Some(saved) if saved.len() == stats.len() => {
+                    stats = saved.iter().map(|&(m, s)| (c(m), c(s))).collect();
+                }
+                _ => {
+                    let f = |v: T| v.to_f64().unwrap_or(f64::NAN);
+                    *cache = Some(stats.iter().map(|&(m, s)| (f(m), f(s))).collect());
+                }
+            }
+        }
+        let yhat = normalise(x.data(), &groups, &stats);
+        let y = scale_shift(&yhat, gamma.data(), beta.data(), d);
+        vec![tensor(vec![n, d], y)]
+    }
+}
+
 /// Batch norm in training mode: each feature is normalised with the mean
 /// and biased variance of the current batch, `y = γ·ŷ + β`.
 ///
@@ -313,23 +316,11 @@ impl<R: Real> BatchNorm<R> {
     }
 }
 
-impl<R: Real> GenericLayer for BatchNorm<R> {
+impl<R: Real> Layer for BatchNorm<R> {
     type Real = R;
 
     fn signature(&self) -> Signature {
         norm_signature()
-    }
-
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, gamma, beta) = (a.input(0), a.param(0), a.param(1));
-        let (n, d) = (x.shape()[0], x.shape()[1]);
-        let groups = columns(n, d);
-        let stats = statistics(x.data(), &groups, NORM_EPS, 0);
-        let yhat = normalise(x.data(), &groups, &stats);
-        vec![tensor(
-            vec![n, d],
-            scale_shift(&yhat, gamma.data(), beta.data(), d),
-        )]
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
@@ -389,6 +380,20 @@ impl<R: Real> GenericLayer for BatchNorm<R> {
     }
 }
 
+impl<R: Real> GenericForward for BatchNorm<R> {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, gamma, beta) = (a.input(0), a.param(0), a.param(1));
+        let (n, d) = (x.shape()[0], x.shape()[1]);
+        let groups = columns(n, d);
+        let stats = statistics(x.data(), &groups, NORM_EPS, 0);
+        let yhat = normalise(x.data(), &groups, &stats);
+        vec![tensor(
+            vec![n, d],
+            scale_shift(&yhat, gamma.data(), beta.data(), d),
+        )]
+    }
+}
+
 /// RMS norm over the last axis with a scale:
 /// `r = √(mean(x²) + ε)`, `x̂ = x/r`, `y = γ·x̂`.
 ///
@@ -434,7 +439,7 @@ fn rms<T: Scalar>(x: &[T], d: usize) -> Vec<T> {
         .collect()
 }
 
-impl<R: Real> GenericLayer for RmsNorm<R> {
+impl<R: Real> Layer for RmsNorm<R> {
     type Real = R;
 
     fn signature(&self) -> Signature {
@@ -442,19 +447,6 @@ impl<R: Real> GenericLayer for RmsNorm<R> {
             .input("x", "batch, feature")
             .param("gamma", "feature")
             .output("y", "batch, feature")
-    }
-
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, gamma) = (a.input(0), a.param(0));
-        let (n, d) = (x.shape()[0], x.shape()[1]);
-        let r = rms(x.data(), d);
-        let y = x
-            .data()
-            .iter()
-            .enumerate()
-            .map(|(i, &v)| gamma.data()[i % d] * v / r[i / d])
-            .collect();
-        vec![tensor(vec![n, d], y)]
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
@@ -489,6 +481,21 @@ impl<R: Real> GenericLayer for RmsNorm<R> {
         };
         let (dgamma, _) = scale_shift_backward(g, &by, d);
         Gradients::from(vec![tensor(vec![n, d], dx), tensor(vec![d], dgamma)])
+    }
+}
+
+impl<R: Real> GenericForward for RmsNorm<R> {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, gamma) = (a.input(0), a.param(0));
+        let (n, d) = (x.shape()[0], x.shape()[1]);
+        let r = rms(x.data(), d);
+        let y = x
+            .data()
+            .iter()
+            .enumerate()
+            .map(|(i, &v)| gamma.data()[i % d] * v / r[i / d])
+            .collect();
+        vec![tensor(vec![n, d], y)]
     }
 }
 

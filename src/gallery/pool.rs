@@ -4,8 +4,9 @@
 use std::marker::PhantomData;
 
 use super::{planted_bugs, tensor, Case, Draw, Kind, Subject};
-use crate::layer::{Args, GenericLayer, Gradients, Layer, Signature};
+use crate::layer::{Args, Forward, GenericForward, Gradients, Layer};
 use crate::scalar::{Real, Scalar};
+use crate::signature::Signature;
 use crate::tensor::Tensor;
 
 planted_bugs! {
@@ -166,26 +167,11 @@ fn argmax<T: Scalar>(x: &[T], members: &[usize]) -> usize {
     best
 }
 
-impl<R: Real> GenericLayer for MaxPool2d<R> {
+impl<R: Real> Layer for MaxPool2d<R> {
     type Real = R;
 
     fn signature(&self) -> Signature {
         pool_signature()
-    }
-
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let x = a.input(0);
-        let win = Windows::new(x.shape(), self.k, self.k);
-        let mut y = Vec::with_capacity(win.planes * win.ho * win.wo);
-        for plane in 0..win.planes {
-            for i in 0..win.ho {
-                for j in 0..win.wo {
-                    let m = win.members(plane, i, j, win.s);
-                    y.push(x.data()[argmax(x.data(), &m)]);
-                }
-            }
-        }
-        vec![tensor(win.out_shape(x.shape()), y)]
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
@@ -223,6 +209,23 @@ impl<R: Real> GenericLayer for MaxPool2d<R> {
             }
         }
         Gradients::from(vec![tensor(x.shape().to_vec(), dx)])
+    }
+}
+
+impl<R: Real> GenericForward for MaxPool2d<R> {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let x = a.input(0);
+        let win = Windows::new(x.shape(), self.k, self.k);
+        let mut y = Vec::with_capacity(win.planes * win.ho * win.wo);
+        for plane in 0..win.planes {
+            for i in 0..win.ho {
+                for j in 0..win.wo {
+                    let m = win.members(plane, i, j, win.s);
+                    y.push(x.data()[argmax(x.data(), &m)]);
+                }
+            }
+        }
+        vec![tensor(win.out_shape(x.shape()), y)]
     }
 }
 
@@ -264,22 +267,6 @@ impl Layer for AvgPool2d {
         pool_signature()
     }
 
-    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
-        let x = a.input(0);
-        let win = Windows::new(x.shape(), 2, 2);
-        let mut y = Vec::with_capacity(win.planes * win.ho * win.wo);
-        for plane in 0..win.planes {
-            for i in 0..win.ho {
-                for j in 0..win.wo {
-                    let m = win.members(plane, i, j, win.s);
-                    let s: f32 = m.iter().map(|&e| x.data()[e]).sum();
-                    y.push(s / m.len() as f32);
-                }
-            }
-        }
-        vec![tensor(win.out_shape(x.shape()), y)]
-    }
-
     fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
         let x = a.input(0);
         let win = Windows::new(x.shape(), 2, 2);
@@ -311,6 +298,24 @@ impl Layer for AvgPool2d {
             }
         }
         Gradients::from(vec![tensor(x.shape().to_vec(), dx)])
+    }
+}
+
+impl Forward for AvgPool2d {
+    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
+        let x = a.input(0);
+        let win = Windows::new(x.shape(), 2, 2);
+        let mut y = Vec::with_capacity(win.planes * win.ho * win.wo);
+        for plane in 0..win.planes {
+            for i in 0..win.ho {
+                for j in 0..win.wo {
+                    let m = win.members(plane, i, j, win.s);
+                    let s: f32 = m.iter().map(|&e| x.data()[e]).sum();
+                    y.push(s / m.len() as f32);
+                }
+            }
+        }
+        vec![tensor(win.out_shape(x.shape()), y)]
     }
 }
 

@@ -7,8 +7,9 @@ use super::{
     affine, gelu, gelu_derivative, planted_bugs, register_generic, tensor, Case, Draw, Kind,
     Subject,
 };
-use crate::layer::{Args, GenericLayer, Gradients, Signature};
+use crate::layer::{Args, GenericForward, Gradients, Layer};
 use crate::scalar::{Real, Scalar};
+use crate::signature::Signature;
 use crate::tensor::Tensor;
 
 planted_bugs! {
@@ -62,7 +63,7 @@ impl<R: Real> Residual<R> {
     }
 }
 
-impl<R: Real> GenericLayer for Residual<R> {
+impl<R: Real> Layer for Residual<R> {
     type Real = R;
 
     fn signature(&self) -> Signature {
@@ -71,19 +72,6 @@ impl<R: Real> GenericLayer for Residual<R> {
             .param("w", "width, width")
             .param("b", "width")
             .output("y", "batch, width")
-    }
-
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
-        let (n, d) = (x.shape()[0], x.shape()[1]);
-        let pre = affine(x.data(), w.data(), Some(b.data()), n, d, d);
-        let y = x
-            .data()
-            .iter()
-            .zip(pre)
-            .map(|(&xi, ai)| xi + gelu(ai))
-            .collect();
-        vec![tensor(vec![n, d], y)]
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
@@ -129,6 +117,21 @@ impl<R: Real> GenericLayer for Residual<R> {
             tensor(vec![d, d], dw),
             tensor(vec![d], db),
         ])
+    }
+}
+
+impl<R: Real> GenericForward for Residual<R> {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
+        let (n, d) = (x.shape()[0], x.shape()[1]);
+        let pre = affine(x.data(), w.data(), Some(b.data()), n, d, d);
+        let y = x
+            .data()
+            .iter()
+            .zip(pre)
+            .map(|(&xi, ai)| xi + gelu(ai))
+            .collect();
+        vec![tensor(vec![n, d], y)]
     }
 }
 

@@ -3,8 +3,9 @@
 use std::marker::PhantomData;
 
 use super::{c, planted_bugs, register_generic, tensor, Case, Draw, Kind, Subject};
-use crate::layer::{Args, GenericLayer, Gradients, Signature};
+use crate::layer::{Args, GenericForward, Gradients, Layer};
 use crate::scalar::{Real, Scalar};
+use crate::signature::Signature;
 use crate::tensor::Tensor;
 
 planted_bugs! {
@@ -80,7 +81,7 @@ fn softmax<T: Scalar>(z: &[T], k: usize) -> Vec<T> {
     s
 }
 
-impl<R: Real> GenericLayer for SoftmaxCrossEntropy<R> {
+impl<R: Real> Layer for SoftmaxCrossEntropy<R> {
     type Real = R;
 
     fn signature(&self) -> Signature {
@@ -88,18 +89,6 @@ impl<R: Real> GenericLayer for SoftmaxCrossEntropy<R> {
             .input("logits", "batch, class")
             .fixed_input("labels", "batch")
             .output("loss", "")
-    }
-
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (z, labels) = (a.input(0), a.input(1));
-        let (n, k) = (z.shape()[0], z.shape()[1]);
-        let mut loss = T::zero();
-        for (r, row) in z.data().chunks(k).enumerate() {
-            let m = row.iter().copied().fold(row[0], T::max);
-            let lse = m + row.iter().map(|&v| (v - m).exp()).sum::<T>().ln();
-            loss += lse - row[label(labels.data()[r], k)];
-        }
-        vec![Tensor::scalar(loss / c(n as f64))]
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
@@ -140,6 +129,20 @@ impl<R: Real> GenericLayer for SoftmaxCrossEntropy<R> {
             }
         }
         Gradients::from(vec![tensor(vec![n, k], dz)])
+    }
+}
+
+impl<R: Real> GenericForward for SoftmaxCrossEntropy<R> {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (z, labels) = (a.input(0), a.input(1));
+        let (n, k) = (z.shape()[0], z.shape()[1]);
+        let mut loss = T::zero();
+        for (r, row) in z.data().chunks(k).enumerate() {
+            let m = row.iter().copied().fold(row[0], T::max);
+            let lse = m + row.iter().map(|&v| (v - m).exp()).sum::<T>().ln();
+            loss += lse - row[label(labels.data()[r], k)];
+        }
+        vec![Tensor::scalar(loss / c(n as f64))]
     }
 }
 

@@ -3,7 +3,7 @@
 
 use std::marker::PhantomData;
 
-use plumbline::{Args, GenericLayer, Gradients, Real, Scalar, Signature, Tensor};
+use plumbline::{Args, GenericForward, Gradients, Layer, Real, Scalar, Signature, Tensor};
 
 /// Planted bugs in the dense layer's backward.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -44,7 +44,7 @@ fn at<T: Copy>(t: &Tensor<T>, ix: &[usize]) -> T {
     t.get(ix).expect("index in range")
 }
 
-impl<R: Real> GenericLayer for Dense<R> {
+impl<R: Real> Layer for Dense<R> {
     type Real = R;
     fn signature(&self) -> Signature {
         Signature::new()
@@ -52,17 +52,6 @@ impl<R: Real> GenericLayer for Dense<R> {
             .param("w", "out, in")
             .param("b", "out")
             .output("y", "batch, out")
-    }
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
-        let (n, i, o) = (x.shape()[0], x.shape()[1], w.shape()[0]);
-        vec![Tensor::from_fn(vec![n, o], |ix| {
-            let mut s = b.data()[ix[1]];
-            for k in 0..i {
-                s += at(w, &[ix[1], k]) * at(x, &[ix[0], k]);
-            }
-            s
-        })]
     }
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
         let (x, w, g) = (a.input(0), a.param(0), &up[0]);
@@ -101,6 +90,20 @@ impl<R: Real> GenericLayer for Dense<R> {
             return Gradients::from(vec![Some(dx), Some(dw), None]);
         }
         Gradients::from(vec![dx, dw, db])
+    }
+}
+
+impl<R: Real> GenericForward for Dense<R> {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
+        let (n, i, o) = (x.shape()[0], x.shape()[1], w.shape()[0]);
+        vec![Tensor::from_fn(vec![n, o], |ix| {
+            let mut s = b.data()[ix[1]];
+            for k in 0..i {
+                s += at(w, &[ix[1], k]) * at(x, &[ix[0], k]);
+            }
+            s
+        })]
     }
 }
 

@@ -3,7 +3,7 @@
 //! humidity, entrance traffic...), score = tanh(w·readings + b).
 #![allow(dead_code)]
 
-use plumbline::{Args, GenericLayer, Gradients, Scalar, Signature, Tensor};
+use plumbline::{Args, GenericForward, Gradients, Layer, Scalar, Signature, Tensor};
 
 /// Planted bugs in the backward.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -27,7 +27,7 @@ fn at(t: &Tensor<f64>, ix: &[usize]) -> f64 {
     t.get(ix).unwrap_or(f64::NAN)
 }
 
-impl GenericLayer for HiveScore {
+impl Layer for HiveScore {
     type Real = f64;
     fn signature(&self) -> Signature {
         Signature::new()
@@ -35,17 +35,6 @@ impl GenericLayer for HiveScore {
             .param("w", "score, sensor")
             .param("b", "score")
             .output("health", "hive, score")
-    }
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
-        let (n, k, s) = (x.shape()[0], x.shape()[1], w.shape()[0]);
-        vec![Tensor::from_fn(vec![n, s], |ix| {
-            let mut z = b.data()[ix[1]];
-            for j in 0..k {
-                z += w.data()[ix[1] * k + j] * x.data()[ix[0] * k + j];
-            }
-            z.tanh()
-        })]
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         let (x, w) = (a.input(0), a.param(0));
@@ -75,6 +64,20 @@ impl GenericLayer for HiveScore {
             _ => (0..n).map(|h| at(&dz, &[h, ix[0]])).sum(),
         });
         Gradients::from(vec![dx, dw, db])
+    }
+}
+
+impl GenericForward for HiveScore {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
+        let (n, k, s) = (x.shape()[0], x.shape()[1], w.shape()[0]);
+        vec![Tensor::from_fn(vec![n, s], |ix| {
+            let mut z = b.data()[ix[1]];
+            for j in 0..k {
+                z += w.data()[ix[1] * k + j] * x.data()[ix[0] * k + j];
+            }
+            z.tanh()
+        })]
     }
 }
 

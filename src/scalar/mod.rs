@@ -1,17 +1,21 @@
-//! Scalar types: what a forward pass may compute with, and the two
-//! precisions a layer may be written in.
+//! Scalar types: what a forward pass may compute with, the two precisions
+//! a layer may be written in, and the complex-step number.
 
 use std::fmt::{Debug, Display};
 use std::iter::Sum;
 
 use num_traits::{Float, NumAssign};
 
+mod complex_step;
+
+pub use complex_step::{complex_step_derivative, ComplexStep};
+
 /// A scalar a generic forward pass can compute with.
 ///
 /// Every `num_traits::Float` method is available, plus the compound
 /// assignment operators, `Sum`, and the special functions layers need that
 /// `Float` lacks (`erf`, for the exact GELU). plumbline implements it for
-/// `f32`, `f64` and [`ComplexStep`](crate::ComplexStep), so a forward written
+/// `f32`, `f64` and [`ComplexStep`](ComplexStep), so a forward written
 /// once against `T: Scalar` runs in the layer's own precision, in `f64`, and
 /// under the complex step.
 ///
@@ -21,11 +25,11 @@ use num_traits::{Float, NumAssign};
 /// # Laws
 /// * For real types, `erf` agrees with the error function to a few ulp
 ///   (NIST DLMF 7.2.1).
-/// * For [`ComplexStep`](crate::ComplexStep), every method carries the
+/// * For [`ComplexStep`](ComplexStep), every method carries the
 ///   derivative in the imaginary part (see its docs for the conventions).
 ///
 /// ```
-/// use plumbline::Scalar;
+/// use plumbline::scalar::Scalar;
 /// fn gelu<T: Scalar>(x: T) -> T {
 ///     let half = T::from(0.5).unwrap();
 ///     half * x * (T::one() + (x / T::from(2.0).unwrap().sqrt()).erf())
@@ -61,7 +65,7 @@ mod sealed {
 /// Sealed: the audit's rounding model knows exactly these two.
 ///
 /// ```
-/// use plumbline::Real;
+/// use plumbline::scalar::Real;
 /// assert_eq!(<f32 as Real>::NAME, "f32");
 /// assert_eq!(<f64 as Real>::from_f64(0.5), 0.5);
 /// ```

@@ -19,7 +19,7 @@ use crate::scalar::{Real, Scalar};
 ///
 /// ```
 /// use num_traits::Float;
-/// use plumbline::ComplexStep;
+/// use plumbline::scalar::ComplexStep;
 ///
 /// let h = 1e-20;
 /// let z = ComplexStep::seeded(2.0_f64, h);
@@ -153,7 +153,7 @@ impl<R: Real> ComplexStep<R> {
     /// The complex number `re + i·im`.
     ///
     /// ```
-    /// use plumbline::ComplexStep;
+    /// use plumbline::scalar::ComplexStep;
     /// let z = ComplexStep::new(1.5_f64, 2e-20);
     /// assert_eq!((z.re, z.im), (1.5, 2e-20));
     /// ```
@@ -164,7 +164,7 @@ impl<R: Real> ComplexStep<R> {
     /// A constant: `x + 0i` (its derivative is zero).
     ///
     /// ```
-    /// use plumbline::ComplexStep;
+    /// use plumbline::scalar::ComplexStep;
     /// assert_eq!(ComplexStep::real(3.0_f32).im, 0.0);
     /// ```
     pub fn real(x: R) -> Self {
@@ -174,7 +174,7 @@ impl<R: Real> ComplexStep<R> {
     /// The seeded input `x + ih`.
     ///
     /// ```
-    /// use plumbline::ComplexStep;
+    /// use plumbline::scalar::ComplexStep;
     /// let z = ComplexStep::seeded(1.0_f64, 1e-20);
     /// assert_eq!((z.re, z.im), (1.0, 1e-20));
     /// ```
@@ -186,7 +186,7 @@ impl<R: Real> ComplexStep<R> {
     /// the input was seeded with. `h = 0` gives NaN or ±∞, never a panic.
     ///
     /// ```
-    /// use plumbline::ComplexStep;
+    /// use plumbline::scalar::ComplexStep;
     /// let h = 1e-20;
     /// let x = ComplexStep::seeded(3.0_f64, h);
     /// assert_eq!((x * x).derivative(h), 6.0);
@@ -198,7 +198,7 @@ impl<R: Real> ComplexStep<R> {
     /// The value: the real part. Equal to `f(x)` up to `(h²/2)|f''(x)|`.
     ///
     /// ```
-    /// use plumbline::ComplexStep;
+    /// use plumbline::scalar::ComplexStep;
     /// assert_eq!(ComplexStep::new(2.0_f64, 1e-20).value(), 2.0);
     /// ```
     pub fn value(self) -> R {
@@ -212,7 +212,7 @@ impl<R: Real> ComplexStep<R> {
     /// sensitivity stays a normal number (see "Step size" on [`ComplexStep`]).
     ///
     /// ```
-    /// use plumbline::ComplexStep;
+    /// use plumbline::scalar::ComplexStep;
     /// assert_eq!(ComplexStep::<f64>::default_step(), 1e-20);
     /// assert_eq!(ComplexStep::<f32>::default_step(), 1e-10);
     /// ```
@@ -242,7 +242,7 @@ impl<R: Real> ComplexStep<R> {
     /// Multiplies both parts by the real `s` (the derivative scales too).
     ///
     /// ```
-    /// use plumbline::ComplexStep;
+    /// use plumbline::scalar::ComplexStep;
     /// let z = ComplexStep::new(1.0_f64, 1e-20).scaled(2.0);
     /// assert_eq!((z.re, z.im), (2.0, 2e-20));
     /// ```
@@ -274,7 +274,7 @@ impl<R: Real> ComplexStep<R> {
 ///
 /// ```
 /// use num_traits::Float;
-/// use plumbline::{complex_step_derivative, ComplexStep};
+/// use plumbline::scalar::{complex_step_derivative, ComplexStep};
 ///
 /// // d/dx eˣ/√(sin³x + cos³x) at x = 1.5 (Squire & Trapp 1998).
 /// let f = |x: ComplexStep<f64>| x.exp() / (x.sin().powi(3) + x.cos().powi(3)).sqrt();

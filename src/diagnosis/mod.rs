@@ -5,15 +5,22 @@
 //! fixed order, from the ones that make every number meaningless (a
 //! non-finite value, a forward that is not repeatable) to the ones that
 //! describe which elements are wrong; the first that fits wins.
+//!
+//! The diagnosis reads plain comparison data (the element checks and what
+//! the audit noticed); it knows nothing of reports or rendering.
 
 use std::fmt;
 
-use crate::report::{ElementCheck, ElementStatus, Row};
-use crate::tensor::{shape_string, Index, Tensor};
+use crate::compare::{relative_error, ElementCheck, ElementStatus, JointKink};
+use crate::format::shape_string;
+use crate::tensor::{MultiIndex, Tensor};
+
+pub(crate) mod summary;
 
 /// What kind of backward bug the numbers point to.
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 #[serde(tag = "kind", rename_all = "kebab-case")]
+#[non_exhaustive]
 pub enum Diagnosis {
     /// The analytic gradient is the numeric one negated, across the tensor.
     SignFlipped,
@@ -21,6 +28,7 @@ pub enum Diagnosis {
     /// tensor.
     Scaled {
         /// analytic / numeric.
+        #[serde(with = "crate::report::float_text")]
         factor: f64,
         /// A common culprit that matches the factor, e.g. `1/N (N = batch = 4)`.
         culprit: Option<String>,
@@ -52,6 +60,19 @@ pub enum Diagnosis {
         /// Where they are, e.g. `last slice of axis 0 (index 3)`.
         pattern: String,
     },
+    /// Every wrong element is wrong by a small relative amount, all in the
+    /// same direction: a tiny but consistent mismatch (an epsilon added in
+    /// the forward and not in the backward, a constant rounded differently,
+    /// a clamp or a floor on one side only).
+    SmallMismatch {
+        /// The median relative error of the wrong elements.
+        #[serde(with = "crate::report::float_text")]
+        relative: f64,
+        /// Elements beyond their bound.
+        wrong: usize,
+        /// Elements checked.
+        of: usize,
+    },
     /// Every element is wrong, and no sign, factor or transposition explains
     /// it: a wrong formula.
     WrongValues {
@@ -74,24 +95,22 @@ pub enum Diagnosis {
         /// The first difference seen.
         detail: String,
     },
-    /// Elements at kinks fit their one-sided derivatives one by one, but
-    /// their sum does not fit the joint move's: one gradient was handed to
-    /// several of them (max-pool ties routed to every maximum).
+    /// Two elements at interacting kinks (a tie of one max) fit their
+    /// one-sided derivatives one by one, but their sum does not fit the
+    /// joint move's: one gradient was handed to both (max-pool ties routed
+    /// to every maximum).
     SharedKink {
-        /// Elements in the group.
-        elements: usize,
+        /// Where the two elements are, e.g. `[0, 1] and [0, 2]`.
+        elements: String,
         /// Σ analytic over them.
+        #[serde(with = "crate::report::float_text")]
         analytic_sum: f64,
-        /// Joint one-sided derivatives.
+        /// Joint one-sided derivative from the left.
+        #[serde(with = "crate::report::float_text")]
         left: f64,
-        /// Joint one-sided derivatives.
+        /// Joint one-sided derivative from the right.
+        #[serde(with = "crate::report::float_text")]
         right: f64,
-    },
-    /// The numeric reference could not decide: its truncation error is too
-    /// wide at these elements (φ changes faster than the stencil's scale).
-    Inconclusive {
-        /// Elements concerned.
-        count: usize,
     },
     /// Some elements sit at a non-differentiable point; listed apart.
     Kinks {
@@ -107,6 +126,16 @@ impl Diagnosis {
     /// `true` for the informational diagnosis of a passing row (kinks).
     pub fn is_informational(&self) -> bool {
         matches!(self, Diagnosis::Kinks { outside: 0, .. })
+    }
+
+    /// `true` when the diagnosis names a mechanism (sign, factor,
+    /// transpose, shape, missing, accumulating, shared kink, small
+    /// mismatch...) rather than "these values are wrong".
+    pub fn is_specific(&self) -> bool {
+        !matches!(
+            self,
+            Diagnosis::WrongValues { .. } | Diagnosis::Partial { .. } | Diagnosis::Kinks { .. }
+        )
     }
 }
 
@@ -133,6 +162,11 @@ impl fmt::Display for Diagnosis {
             Diagnosis::Partial { wrong, of, pattern } => {
                 write!(f, "partial: {pattern} ({wrong} of {of} wrong)")
             }
+            Diagnosis::SmallMismatch { relative, wrong, of } => write!(
+                f,
+                "small systematic mismatch: {} relative ({wrong} of {of}); an epsilon or constant differs between forward and backward?",
+                crate::format::err(*relative)
+            ),
             Diagnosis::WrongValues { of } => {
                 write!(
                     f,
@@ -146,10 +180,6 @@ impl fmt::Display for Diagnosis {
             Diagnosis::BackwardAccumulates { detail } => {
                 write!(f, "backward accumulates: {detail}")
             }
-            Diagnosis::Inconclusive { count } => write!(
-                f,
-                "reference inconclusive at {count} (use a GenericLayer for the complex step)"
-            ),
             Diagnosis::SharedKink {
                 elements,
                 analytic_sum,
@@ -157,7 +187,7 @@ impl fmt::Display for Diagnosis {
                 right,
             } => write!(
                 f,
-                "kinks share one gradient: sum over {elements} is {}, joint one-sided {} / {}",
+                "kinks share one gradient: {elements} sum to {}, joint one-sided {} / {}",
                 crate::format::num(*analytic_sum),
                 crate::format::num(*left),
                 crate::format::num(*right)
@@ -193,7 +223,16 @@ pub(crate) struct Evidence {
 const FACTOR_MATCH: f64 = 2e-3;
 
 /// The primary diagnosis of a row, if any.
-pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> Option<Diagnosis> {
+///
+/// `shape` is the tensor's shape, `grad` the gradient the backward
+/// returned (any shape), `elements` the checked elements.
+pub(crate) fn diagnose(
+    shape: &[usize],
+    grad: Option<&Tensor<f64>>,
+    elements: &[ElementCheck],
+    joint_kink: Option<&JointKink>,
+    ev: &Evidence,
+) -> Option<Diagnosis> {
     if let Some(place) = &ev.nonfinite_output {
         return Some(Diagnosis::NonFinite {
             place: format!("forward {place}"),
@@ -217,36 +256,40 @@ pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> 
             place: format!("backward at {}", grad.index_of(j)),
         });
     }
-    let el = &row.elements;
-    if let Some(e) = el.iter().find(|e| !e.numeric.is_finite()) {
+    let el = elements;
+    if let Some(e) = el
+        .iter()
+        .find(|e| !e.numeric.is_finite() && e.status != ElementStatus::NonFiniteInput)
+    {
         return Some(Diagnosis::NonFinite {
-            place: format!("reference at {}", Index::from_flat(&row.shape, e.index)),
+            place: format!("reference at {}", MultiIndex::from_flat(shape, e.index)),
         });
     }
-    if grad.shape() != row.shape.as_slice() {
-        if let Some(axes) = transposed_match(&row.shape, grad, el) {
+    if grad.shape() != shape {
+        if let Some(axes) = transposed_match(shape, grad, el) {
             return Some(Diagnosis::Transposed { axes });
         }
         return Some(Diagnosis::WrongShape {
-            expected: row.shape.clone(),
+            expected: shape.to_vec(),
             returned: grad.shape().to_vec(),
         });
     }
     let wrong: Vec<usize> = (0..el.len())
         .filter(|&j| el[j].status.is_failure())
         .collect();
-    let kinks = el
-        .iter()
-        .filter(|e| matches!(e.status, ElementStatus::Kink { .. }))
-        .count();
+    let kinks = el.iter().filter(|e| e.status.is_kink()).count();
     let outside = el
         .iter()
         .filter(|e| matches!(e.status, ElementStatus::Kink { fits: false, .. }))
         .count();
-    if let Some(j) = &row.joint_kink {
+    if let Some(j) = joint_kink {
         if wrong.is_empty() {
             return Some(Diagnosis::SharedKink {
-                elements: j.elements,
+                elements: format!(
+                    "{} and {}",
+                    MultiIndex::from_flat(shape, j.elements[0]),
+                    MultiIndex::from_flat(shape, j.elements[1])
+                ),
                 analytic_sum: j.analytic_sum,
                 left: j.left,
                 right: j.right,
@@ -258,13 +301,6 @@ pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> 
             count: kinks,
             outside,
         });
-    }
-    if el
-        .iter()
-        .filter(|e| e.status.is_failure())
-        .all(|e| e.status == ElementStatus::Inconclusive)
-    {
-        return Some(Diagnosis::Inconclusive { count: wrong.len() });
     }
     // Elements at a kink say nothing about the smooth part's bug.
     let smooth: Vec<ElementCheck> = el.iter().filter(|e| !e.status.is_kink()).cloned().collect();
@@ -289,8 +325,11 @@ pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> 
             });
         }
     }
-    if let Some(axes) = transposed_match(&row.shape, grad, el) {
+    if let Some(axes) = transposed_match(shape, grad, el) {
         return Some(Diagnosis::Transposed { axes });
+    }
+    if let Some(d) = small_mismatch(el, &wrong) {
+        return Some(d);
     }
     if wrong.len() == smooth.len() {
         return Some(Diagnosis::WrongValues { of: wrong.len() });
@@ -298,7 +337,39 @@ pub(crate) fn diagnose(row: &Row, grad: Option<&Tensor<f64>>, ev: &Evidence) -> 
     Some(Diagnosis::Partial {
         wrong: wrong.len(),
         of: el.len(),
-        pattern: pattern(&row.shape, &wrong),
+        pattern: pattern(
+            shape,
+            &wrong.iter().map(|&k| el[k].index).collect::<Vec<_>>(),
+        ),
+    })
+}
+
+/// Relative error below which a consistent mismatch counts as small.
+const SMALL: f64 = 1e-3;
+
+/// Every wrong element off by less than [`SMALL`] relative, all with the
+/// same sign of (analytic − numeric)·numeric: a tiny, consistent
+/// mismatch rather than a wrong formula.
+fn small_mismatch(el: &[ElementCheck], wrong: &[usize]) -> Option<Diagnosis> {
+    let mut rel: Vec<f64> = wrong
+        .iter()
+        .map(|&k| relative_error(el[k].analytic, el[k].numeric))
+        .collect();
+    if rel.is_empty() || !rel.iter().all(|&r| r < SMALL) {
+        return None;
+    }
+    let signs: Vec<bool> = wrong
+        .iter()
+        .map(|&k| (el[k].analytic - el[k].numeric) * el[k].numeric > 0.0)
+        .collect();
+    if !(signs.iter().all(|&s| s) || signs.iter().all(|&s| !s)) {
+        return None;
+    }
+    rel.sort_by(f64::total_cmp);
+    Some(Diagnosis::SmallMismatch {
+        relative: rel[rel.len() / 2],
+        wrong: wrong.len(),
+        of: el.len(),
     })
 }
 
@@ -373,7 +444,7 @@ fn transposed_match(
                 if e.status.is_kink() {
                     return true;
                 }
-                let mut ix = Index::from_flat(shape, e.index).0;
+                let mut ix = MultiIndex::from_flat(shape, e.index).0;
                 ix.swap(p, q);
                 grad.get(&ix)
                     .is_some_and(|a| (a - e.numeric).abs() <= e.bound)
@@ -393,7 +464,7 @@ fn transposed_match(
 fn pattern(shape: &[usize], wrong: &[usize]) -> String {
     let idx: Vec<Vec<usize>> = wrong
         .iter()
-        .map(|&j| Index::from_flat(shape, j).0)
+        .map(|&j| MultiIndex::from_flat(shape, j).0)
         .collect();
     let total: usize = shape.iter().product();
     // The diagonal of a square matrix, or everything but it.
@@ -408,7 +479,7 @@ fn pattern(shape: &[usize], wrong: &[usize]) -> String {
         }
     }
     if idx.len() == 1 {
-        return format!("one element, {}", Index(idx[0].clone()));
+        return format!("one element, {}", MultiIndex(idx[0].clone()));
     }
     // All wrong elements in one slice of one axis.
     let mut best: Option<(usize, usize, bool)> = None;
@@ -442,7 +513,7 @@ fn pattern(shape: &[usize], wrong: &[usize]) -> String {
             format!("{whole}{word} {v} ({which} of axis {axis})")
         };
     }
-    format!("scattered, first at {}", Index(idx[0].clone()))
+    format!("scattered, first at {}", MultiIndex(idx[0].clone()))
 }
 
 #[cfg(test)]

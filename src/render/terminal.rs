@@ -11,7 +11,7 @@
 use std::fmt;
 use std::io::{IsTerminal, Write};
 
-use crate::render::{table, Style};
+use super::{table, Style};
 use crate::report::Report;
 
 /// Whether printed tables are coloured.
@@ -27,23 +27,26 @@ pub enum ColorChoice {
     Never,
 }
 
-impl ColorChoice {
-    /// Parses `auto`, `always`, `never`.
-    ///
-    /// ```
-    /// use plumbline::ColorChoice;
-    /// assert_eq!(ColorChoice::parse("Never"), Some(ColorChoice::Never));
-    /// assert_eq!(ColorChoice::parse("sometimes"), None);
-    /// ```
-    pub fn parse(s: &str) -> Option<ColorChoice> {
+/// Parses `auto`, `always`, `never` (any case).
+///
+/// ```
+/// use plumbline::render::ColorChoice;
+/// assert_eq!("Never".parse(), Ok(ColorChoice::Never));
+/// assert!("sometimes".parse::<ColorChoice>().is_err());
+/// ```
+impl std::str::FromStr for ColorChoice {
+    type Err = String;
+    fn from_str(s: &str) -> Result<ColorChoice, String> {
         match s.trim().to_ascii_lowercase().as_str() {
-            "auto" => Some(ColorChoice::Auto),
-            "always" => Some(ColorChoice::Always),
-            "never" => Some(ColorChoice::Never),
-            _ => None,
+            "auto" => Ok(ColorChoice::Auto),
+            "always" => Ok(ColorChoice::Always),
+            "never" => Ok(ColorChoice::Never),
+            _ => Err("expected `auto`, `always` or `never`".to_string()),
         }
     }
+}
 
+impl ColorChoice {
     /// Decides, given whether the output is a terminal and a lookup of
     /// environment variables.
     ///
@@ -52,7 +55,7 @@ impl ColorChoice {
     /// else on.
     ///
     /// ```
-    /// use plumbline::ColorChoice;
+    /// use plumbline::render::ColorChoice;
     /// let vars = |pairs: &'static [(&'static str, &'static str)]| {
     ///     move |n: &str| pairs.iter().find(|(k, _)| *k == n).map(|(_, v)| v.to_string())
     /// };
@@ -95,9 +98,9 @@ impl fmt::Display for ColorChoice {
 /// (no limit).
 ///
 /// ```
-/// assert_eq!(plumbline::terminal_width(|_| Some("100".into())), Some(100));
-/// assert_eq!(plumbline::terminal_width(|_| Some("wide".into())), None);
-/// assert_eq!(plumbline::terminal_width(|_| None), None);
+/// assert_eq!(plumbline::render::terminal_width(|_| Some("100".into())), Some(100));
+/// assert_eq!(plumbline::render::terminal_width(|_| Some("wide".into())), None);
+/// assert_eq!(plumbline::render::terminal_width(|_| None), None);
 /// ```
 pub fn terminal_width(lookup: impl Fn(&str) -> Option<String>) -> Option<usize> {
     lookup("COLUMNS")
@@ -118,15 +121,18 @@ pub fn stdout_style(choice: ColorChoice) -> Style {
 /// Writes the table of `report` into `w` in the given style.
 ///
 /// ```
-/// # use plumbline::*;
+/// # use plumbline::prelude::*;
+/// use plumbline::render::{write_table, Style};
 /// # struct Twice;
 /// # impl Layer for Twice {
 /// #     type Real = f64;
 /// #     fn signature(&self) -> Signature { Signature::new().input("x", "n").output("y", "n") }
-/// #     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> { vec![a.input(0).map(|x| 2.0 * x)] }
 /// #     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
 /// #         Gradients::from(vec![g[0].map(|g| 2.0 * g)])
 /// #     }
+/// # }
+/// # impl Forward for Twice {
+/// #     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> { vec![a.input(0).map(|x| 2.0 * x)] }
 /// # }
 /// let x = Tensor::new(vec![2], vec![1.0, 2.0])?;
 /// let report = Audit::new().run(&Twice, &Args::new(vec![x], vec![]))?;

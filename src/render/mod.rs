@@ -1,12 +1,33 @@
 //! Renderers: read a [`Report`] and produce text. The aligned terminal
 //! table (plain or coloured, optionally fitted to a width), the failure
-//! message of the assertion helpers, and Markdown for CI job summaries.
+//! messages of the assertion helpers, Markdown for CI job summaries, and
+//! report files. The report itself never calls in here.
+//!
+//! `Display` for [`Report`] is the plain table, so `{}` in a panic message
+//! shows everything.
 
-use std::fmt::Write as _;
+use std::fmt::{self, Write as _};
 
-use crate::format::{err, num, shorten_middle};
+use crate::format::{err, num, shape_string, shorten_middle};
 use crate::report::{Report, Row};
-use crate::tensor::shape_string;
+
+pub(crate) mod files;
+mod terminal;
+
+pub use files::{json, write_report};
+pub use terminal::{stdout_style, terminal_width, write_table, ColorChoice};
+
+impl fmt::Display for Report {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(&table(self, &Style::plain()))
+    }
+}
+
+impl fmt::Display for crate::report::Passed {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        fmt::Display::fmt(&**self, f)
+    }
+}
 
 /// How to render a table.
 #[derive(Clone, Debug, PartialEq, Eq, Default)]
@@ -64,12 +85,12 @@ fn cells(rank: usize, r: &Row) -> [String; COLS] {
         r.name.clone(),
         r.role.to_string(),
         shape_string(&r.shape),
-        if r.of > r.checked {
-            format!("{}/{}", r.checked, r.of)
+        if r.total > r.checked {
+            format!("{}/{}", r.checked, r.total)
         } else {
             r.checked.to_string()
         },
-        r.disagreeing.to_string(),
+        r.failing.to_string(),
         at,
         a,
         n,
@@ -105,9 +126,9 @@ pub fn table(report: &Report, style: &Style) -> String {
         out,
         "gradient audit of {} ({} layer, {} reference in {}, seed {}): {}",
         report.layer,
-        report.precision,
+        report.precision(),
         schemes(report),
-        report.reference_precision,
+        report.reference_precision(),
         report.seed,
         if failing == 0 {
             format!("all {} tensors agree", report.rows.len())
@@ -146,7 +167,7 @@ pub fn table(report: &Report, style: &Style) -> String {
     let _ = writeln!(
         out,
         "bound per element: {}; {} forward and {} backward evaluations",
-        report.tolerance.describe(),
+        report.bound_rule(),
         report.forward_evals,
         report.backward_evals
     );
@@ -223,9 +244,48 @@ fn paint(style: &Style, line: usize, rows: &[Row], col: usize, cell: String) -> 
     }
 }
 
-/// The message the assertion helpers panic with: what failed, the whole
-/// table, and how to replay or change the outcome.
+/// The message [`Report::assert_passed`] panics with: what failed, the
+/// whole table, and the code settings that replay or change the outcome.
+/// (`Audit::run` reads no environment variable, so none is suggested.)
+///
+/// ```
+/// # use plumbline::prelude::*;
+/// # struct Bad;
+/// # impl Layer for Bad {
+/// #     type Real = f64;
+/// #     fn signature(&self) -> Signature { Signature::new().input("x", "n").output("y", "n") }
+/// #     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
+/// #         Gradients::from(vec![g[0].map(|g| -3.0 * g)])
+/// #     }
+/// # }
+/// # impl Forward for Bad {
+/// #     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> { vec![a.input(0).map(|x| 3.0 * x)] }
+/// # }
+/// let x = Tensor::new(vec![2], vec![1.0, 2.0])?;
+/// let report = Audit::new().run(&Bad, &Args::new(vec![x], vec![]))?;
+/// let message = plumbline::render::failure_message(&report);
+/// assert!(message.contains("sign flipped") && message.contains(".seed("));
+/// assert!(!message.contains("PLUMBLINE_"));
+/// # Ok::<(), plumbline::Error>(())
+/// ```
 pub fn failure_message(report: &Report) -> String {
+    let mut out = failure_head(report);
+    let _ = writeln!(
+        out,
+        "replay: seed {} (`.seed({})`)",
+        report.seed, report.seed
+    );
+    let _ = writeln!(
+        out,
+        "to loosen: `.margin(..)` (now {}); fixed bounds with `.max_absolute(..)` / `.max_relative(..)`",
+        report.margin()
+    );
+    out
+}
+
+/// What failed and the whole table: the common head of every failure
+/// message.
+pub(crate) fn failure_head(report: &Report) -> String {
     let failing: Vec<&str> = report.failures().map(|r| r.name.as_str()).collect();
     let mut out = String::new();
     let _ = writeln!(
@@ -242,16 +302,6 @@ pub fn failure_message(report: &Report) -> String {
     out.push('\n');
     out.push_str(&table(report, &Style::plain()));
     out.push('\n');
-    let _ = writeln!(
-        out,
-        "replay: seed {} (set PLUMBLINE_SEED={} or `.seed({})`)",
-        report.seed, report.seed, report.seed
-    );
-    let _ = writeln!(
-        out,
-        "to loosen: PLUMBLINE_MARGIN (now {}) or `.margin(..)`; fixed bounds with `.epsilon(..)` / `.max_relative(..)`",
-        report.tolerance.margin
-    );
     out
 }
 
@@ -273,9 +323,9 @@ pub fn markdown(report: &Report) -> String {
     let _ = writeln!(
         out,
         "{} layer, {} reference in {}, seed `{}`\n",
-        report.precision,
+        report.precision(),
         schemes(report),
-        report.reference_precision,
+        report.reference_precision(),
         report.seed
     );
     let _ = writeln!(out, "| {} |", HEADERS.join(" | "));

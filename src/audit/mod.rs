@@ -1,0 +1,258 @@
+//! The audit: its settings (a builder) and [`Audit::run`], which compares
+//! every element of every backward gradient with a numerical reference and
+//! returns a [`Report`](crate::Report). It never prints.
+
+use std::fmt;
+use std::sync::Arc;
+
+use crate::error::Error;
+use crate::scheme::Scheme;
+use crate::tolerance::Tolerance;
+
+mod run;
+
+pub use crate::tolerance::{DEFAULT_MARGIN, MAX_MARGIN, ROUNDING_ULPS};
+
+/// The seed used when none is set.
+pub const DEFAULT_SEED: u64 = 0x00C0_FFEE;
+
+/// The default budget of forward evaluations per audit.
+pub const DEFAULT_MAX_EVALUATIONS: u64 = 1_000_000;
+
+/// Where an audit stands, for a progress callback.
+#[derive(Clone, Debug, PartialEq)]
+#[non_exhaustive]
+pub struct Progress {
+    /// The tensor being checked.
+    pub tensor: String,
+    /// Elements checked so far, over all tensors.
+    pub done: usize,
+    /// Elements to check, over all tensors.
+    pub total: usize,
+    /// Forward evaluations so far.
+    pub forward_evals: usize,
+}
+
+type ProgressFn = Arc<dyn Fn(&Progress) + Send + Sync>;
+
+/// Settings of a gradient audit (a builder), and the entry point
+/// [`run`](Audit::run).
+///
+/// Every setter takes and returns the audit. Values are checked when the
+/// audit runs: a setting that would silence it (a margin of 0, NaN or
+/// ∞, no elements to check, a relative bound of 1 or more) is an
+/// [`Error::Setting`] naming the setting and the value, never a verdict.
+///
+/// `Audit::run` reads no environment variable; [`assert_backward!`](crate::assert_backward)
+/// and [`check_layer`](crate::check_layer) start from the `PLUMBLINE_*`
+/// variables (see [`env`](crate::env)).
+///
+/// ```
+/// use plumbline::{Audit, Error, Scheme};
+/// let audit = Audit::new().seed(7).margin(8.0).scheme(Scheme::Ridders);
+/// # let _ = audit;
+///
+/// // A margin that would accept anything is refused when the audit runs.
+/// # use plumbline::prelude::*;
+/// # struct Twice;
+/// # impl Layer for Twice {
+/// #     type Real = f64;
+/// #     fn signature(&self) -> Signature { Signature::new().input("x", "n").output("y", "n") }
+/// #     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
+/// #         Gradients::from(vec![g[0].map(|g| 2.0 * g)])
+/// #     }
+/// # }
+/// # impl Forward for Twice {
+/// #     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> { vec![a.input(0).map(|x| 2.0 * x)] }
+/// # }
+/// let args = Args::new(vec![Tensor::new(vec![2], vec![1.0, 2.0])?], vec![]);
+/// let err = Audit::new().margin(f64::INFINITY).run(&Twice, &args).unwrap_err();
+/// assert!(matches!(err, Error::Setting { ref setting, .. } if setting == "margin"));
+/// # Ok::<(), plumbline::Error>(())
+/// ```
+#[derive(Clone)]
+pub struct Audit {
+    pub(crate) seed: u64,
+    pub(crate) scheme: Option<Scheme>,
+    pub(crate) tolerance: Tolerance,
+    pub(crate) kinks_fail: bool,
+    pub(crate) name: Option<String>,
+    pub(crate) max_elements: Option<usize>,
+    pub(crate) max_evaluations: u64,
+    pub(crate) own_precision: bool,
+    pub(crate) progress: Option<ProgressFn>,
+}
+
+impl Default for Audit {
+    fn default() -> Self {
+        Audit::new()
+    }
+}
+
+impl fmt::Debug for Audit {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.debug_struct("Audit")
+            .field("seed", &self.seed)
+            .field("scheme", &self.scheme)
+            .field("margin", &self.tolerance.margin)
+            .field("max_absolute", &self.tolerance.max_absolute)
+            .field("max_relative", &self.tolerance.max_relative)
+            .field("kinks_fail", &self.kinks_fail)
+            .field("name", &self.name)
+            .field("max_elements", &self.max_elements)
+            .field("max_evaluations", &self.max_evaluations)
+            .field("own_precision", &self.own_precision)
+            .field("progress", &self.progress.as_ref().map(|_| "callback"))
+            .finish()
+    }
+}
+
+impl Audit {
+    /// An audit with default settings.
+    pub fn new() -> Self {
+        Audit {
+            seed: DEFAULT_SEED,
+            scheme: None,
+            tolerance: Tolerance::default(),
+            kinks_fail: false,
+            name: None,
+            max_elements: None,
+            max_evaluations: DEFAULT_MAX_EVALUATIONS,
+            own_precision: false,
+            progress: None,
+        }
+    }
+
+    /// Seed of the random upstream gradient (default [`DEFAULT_SEED`]).
+    #[must_use]
+    pub fn seed(mut self, seed: u64) -> Self {
+        self.seed = seed;
+        self
+    }
+
+    /// Forces a difference scheme. By default a layer with a
+    /// [`GenericForward`](crate::GenericForward) gets the complex step and
+    /// any other layer Ridders' method.
+    #[must_use]
+    pub fn scheme(mut self, scheme: Scheme) -> Self {
+        self.scheme = Some(scheme);
+        self
+    }
+
+    /// Multiple of the error bar an element may deviate by (default 4;
+    /// finite, above 0, at most 10,000).
+    #[must_use]
+    pub fn margin(mut self, margin: f64) -> Self {
+        self.tolerance.margin = margin;
+        self
+    }
+
+    /// A fixed absolute bound instead of the error bar. Combined with
+    /// [`max_relative`](Audit::max_relative), an element agrees if either
+    /// holds. Finite and ≥ 0.
+    #[must_use]
+    pub fn max_absolute(mut self, bound: f64) -> Self {
+        self.tolerance.max_absolute = Some(bound);
+        self
+    }
+
+    /// A fixed relative bound instead of the error bar:
+    /// |a − n| ≤ bound · max(|a|, |n|). Finite, ≥ 0 and below 1.
+    #[must_use]
+    pub fn max_relative(mut self, bound: f64) -> Self {
+        self.tolerance.max_relative = Some(bound);
+        self
+    }
+
+    /// Whether elements at a kink that the analytic value does not fit fail.
+    #[must_use]
+    pub fn kinks_fail(mut self, yes: bool) -> Self {
+        self.kinks_fail = yes;
+        self
+    }
+
+    /// Checks at most `n` elements of each tensor (n ≥ 1), a random subset
+    /// drawn from the seed (every element of smaller tensors). The table
+    /// shows how many were checked (`40/576`); every returned gradient
+    /// element is still checked for being finite.
+    #[must_use]
+    pub fn max_elements(mut self, n: usize) -> Self {
+        self.max_elements = Some(n);
+        self
+    }
+
+    /// The budget of forward evaluations (default
+    /// [`DEFAULT_MAX_EVALUATIONS`]). An audit estimates its cost before it
+    /// starts and refuses with [`Error::OverBudget`] (saying how many it
+    /// would take and what to set) rather than running for hours.
+    #[must_use]
+    pub fn max_evaluations(mut self, n: u64) -> Self {
+        self.max_evaluations = n;
+        self
+    }
+
+    /// Audits a layer with a [`GenericForward`](crate::GenericForward)
+    /// through its plain path: its own forward, in its own precision, with
+    /// real differences, as if it had only a [`Forward`](crate::Forward).
+    /// (Default `false`: complex-step references in `f64`.)
+    #[must_use]
+    pub fn own_precision(mut self, yes: bool) -> Self {
+        self.own_precision = yes;
+        self
+    }
+
+    /// The layer name shown in the report.
+    #[must_use]
+    pub fn name(mut self, name: impl Into<String>) -> Self {
+        self.name = Some(name.into());
+        self
+    }
+
+    /// Calls `f` after each checked element, with where the audit stands
+    /// (the library never prints).
+    ///
+    /// ```
+    /// use std::sync::atomic::{AtomicUsize, Ordering};
+    /// use std::sync::Arc;
+    /// let seen = Arc::new(AtomicUsize::new(0));
+    /// let counter = seen.clone();
+    /// let audit = plumbline::Audit::new().on_progress(move |p| {
+    ///     counter.store(p.done, Ordering::Relaxed);
+    /// });
+    /// # let _ = audit;
+    /// ```
+    #[must_use]
+    pub fn on_progress(mut self, f: impl Fn(&Progress) + Send + Sync + 'static) -> Self {
+        self.progress = Some(Arc::new(f));
+        self
+    }
+
+    /// Checks every setting (run calls this first).
+    pub(crate) fn validate(&self) -> Result<(), Error> {
+        self.tolerance.validate()?;
+        if self.max_elements == Some(0) {
+            return Err(Error::Setting {
+                setting: "max_elements".into(),
+                value: "0".into(),
+                detail: "checking no element passes any backward; give at least 1".into(),
+            });
+        }
+        if self.max_evaluations == 0 {
+            return Err(Error::Setting {
+                setting: "max_evaluations".into(),
+                value: "0".into(),
+                detail: "an audit needs at least one forward evaluation".into(),
+            });
+        }
+        Ok(())
+    }
+
+    /// Scales every bound by `factor` (the environment's margin factor).
+    pub(crate) fn scale_bounds(mut self, factor: f64) -> Self {
+        let t = &mut self.tolerance;
+        t.margin *= factor;
+        t.max_absolute = t.max_absolute.map(|a| a * factor);
+        t.max_relative = t.max_relative.map(|r| r * factor);
+        self
+    }
+}

@@ -1,0 +1,520 @@
+//! One audit, start to finish: check the arguments, call the layer,
+//! estimate every checked element, compare, summarise, diagnose.
+
+use rand::{RngExt, SeedableRng};
+
+use super::{Audit, Progress};
+use crate::compare::{self, Compared, Prober};
+use crate::diagnosis::summary::{summarize, RowFacts};
+use crate::diagnosis::{diagnose, Evidence};
+use crate::error::Error;
+use crate::format::num;
+use crate::layer::{Args, Forward, Gradients};
+use crate::report::{Report, Row, Worst};
+use crate::scalar::Real;
+use crate::scheme::engine::{guarded, Engine};
+use crate::scheme::{Estimate, KinkProbe, Scheme};
+use crate::signature::{Role, Signature, Slot};
+use crate::tensor::{MultiIndex, Tensor};
+
+/// Forward evaluations one element costs, for the budget (typical, not
+/// worst case).
+fn cost_per_element(scheme: Scheme) -> u64 {
+    match scheme {
+        Scheme::ComplexStep => 1,
+        Scheme::Central => 6,
+        Scheme::Ridders => 24,
+    }
+}
+
+/// Calls the layer, turning a panic into an error that names the call.
+fn call<T>(layer: &str, call: &str, f: impl FnOnce() -> T) -> Result<T, Error> {
+    guarded(f).map_err(|message| Error::LayerPanicked {
+        layer: layer.to_string(),
+        call: call.to_string(),
+        at: String::new(),
+        message,
+    })
+}
+
+impl Audit {
+    /// Audits `layer` at `args`.
+    ///
+    /// Errors only on misuse (argument count or shape, malformed signature,
+    /// a forward returning the wrong outputs, a backward returning more
+    /// gradients than there are differentiable tensors, an invalid setting,
+    /// a scheme the layer cannot support, an audit over its budget) and
+    /// when the layer panics. A wrong gradient is a failing row of the
+    /// report, not an error.
+    pub fn run<L: Forward + ?Sized>(
+        &self,
+        layer: &L,
+        args: &Args<L::Real>,
+    ) -> Result<Report, Error> {
+        self.validate()?;
+        let name = self.name.clone().unwrap_or_else(short_type_name::<L>);
+        let sig = call(&name, "signature", || layer.signature())?;
+        let bindings = sig.bind(&name, args)?;
+        let generic = layer.reference().is_some() && !self.own_precision;
+        let scheme = self.choose_scheme(&name, generic)?;
+
+        let y0 = call(&name, "forward", || layer.forward(args))?;
+        let y1 = call(&name, "forward (second call)", || layer.forward(args))?;
+        sig.check_outputs(&name, "forward", &bindings, &y0)?;
+        sig.check_outputs(&name, "forward (second call)", &bindings, &y1)?;
+        let mut evidence = Evidence {
+            forward_change: first_difference(&sig, &y0, &y1),
+            nonfinite_output: first_nonfinite(&sig, &y0),
+            sizes: bindings.named_sizes(),
+            ..Evidence::default()
+        };
+
+        let mut rng = rand::rngs::StdRng::seed_from_u64(self.seed);
+        let upstream: Vec<Tensor<L::Real>> = y0
+            .iter()
+            .map(|y| y.map(|_| L::Real::from_f64(rng.random_range(-1.0..1.0))))
+            .collect();
+        let w: Vec<Vec<f64>> = upstream
+            .iter()
+            .map(|u| u.data().iter().map(|v| v.as_f64()).collect())
+            .collect();
+        let g1 = call(&name, "backward", || layer.backward(args, &upstream))?;
+        let g2 = call(&name, "backward (second call)", || {
+            layer.backward(args, &upstream)
+        })?;
+
+        let slots = sig.slots();
+        let differentiable: Vec<(usize, &Slot)> = slots
+            .iter()
+            .copied()
+            .enumerate()
+            .filter(|(_, s)| s.role != Role::Fixed)
+            .collect();
+        check_gradient_count(&name, &differentiable, &g1)?;
+        let plan: Vec<Vec<usize>> = differentiable
+            .iter()
+            .map(|&(k, _)| sample(args.all()[k].len(), self.max_elements, self.seed, k))
+            .collect();
+        let total: usize = plan.iter().map(Vec::len).sum();
+        let needed = total as u64 * cost_per_element(scheme) + 4;
+        if needed > self.max_evaluations {
+            return Err(Error::OverBudget {
+                layer: name,
+                needed,
+                budget: self.max_evaluations,
+            });
+        }
+
+        let slot_names = slots.iter().map(|s| s.name.clone()).collect();
+        let mut engine = Engine::new(layer, &name, slot_names, args, &y0, w, generic);
+        let mut rows = Vec::with_capacity(differentiable.len());
+        let mut notes = Vec::new();
+        let mut progress = Tally {
+            done: 0,
+            total,
+            callback: self.progress.as_deref(),
+        };
+        for (d, &(slot, spec)) in differentiable.iter().enumerate() {
+            let grad = g1.get(d);
+            evidence.backward_change = match (grad, g2.get(d)) {
+                (Some(a), Some(b)) => first_tensor_difference(a, b),
+                _ => None,
+            };
+            let mut tensor = TensorCase {
+                spec,
+                slot,
+                args_tensor: &args.all()[slot],
+                grad: grad.map(|g| g.map(|v| v.as_f64())),
+                indices: &plan[d],
+                scheme,
+            };
+            let estimates =
+                self.estimate_tensor(&mut engine, &mut tensor, &mut notes, &mut progress)?;
+            rows.push(self.row(
+                tensor,
+                estimates,
+                &mut engine,
+                &evidence,
+                L::Real::EPS,
+                &mut notes,
+            )?);
+        }
+        // Failing rows first, then by relative error, worst first.
+        rows.sort_by(|a, b| {
+            (a.verdict.is_pass().cmp(&b.verdict.is_pass()))
+                .then(b.max_rel_error.total_cmp(&a.max_rel_error))
+        });
+        let forward_evals = engine.evals + 2;
+        let reference_precision = engine.precision_name().to_string();
+        drop(engine);
+        Ok(Report {
+            layer: name,
+            seed: self.seed,
+            rows,
+            notes,
+            forward_evals,
+            backward_evals: 2,
+            precision: L::Real::NAME.to_string(),
+            reference_precision,
+            tolerance: self.tolerance.clone(),
+            kinks_fail: self.kinks_fail,
+        })
+    }
+
+    fn choose_scheme(&self, name: &str, generic: bool) -> Result<Scheme, Error> {
+        match (self.scheme, generic) {
+            (Some(Scheme::ComplexStep), false) => Err(Error::Setting {
+                setting: "scheme".into(),
+                value: "complex-step".into(),
+                detail: if self.own_precision {
+                    format!("`own_precision` audits layer `{name}` through its plain forward, which has no complex step")
+                } else {
+                    format!(
+                        "layer `{name}` has no generic forward; implement `GenericForward` for it, or use `ridders` or `central`"
+                    )
+                },
+            }),
+            (Some(s), _) => Ok(s),
+            (None, true) => Ok(Scheme::ComplexStep),
+            (None, false) => Ok(Scheme::Ridders),
+        }
+    }
+
+    /// Estimates for the checked elements of one tensor, and the scheme
+    /// that produced them.
+    ///
+    /// With the complex step, a few seeded elements are cross-checked with
+    /// real differences: a generic forward that leaves the `Scalar` path
+    /// for part of the function (`to_f64()`, `as`, a real-only library
+    /// call) drops that part's derivative silently. When real differences
+    /// disagree, the tensor is checked with Ridders' method in `f64`
+    /// instead, and a note says so.
+    fn estimate_tensor<L: Forward + ?Sized>(
+        &self,
+        engine: &mut Engine<'_, L>,
+        t: &mut TensorCase<'_, L::Real>,
+        notes: &mut Vec<String>,
+        progress: &mut Tally<'_>,
+    ) -> Result<Vec<Estimate>, Error> {
+        let mut estimates = Vec::with_capacity(t.indices.len());
+        for &j in t.indices {
+            let e = match t.scheme {
+                Scheme::ComplexStep => engine.complex_estimate(t.slot, j)?,
+                _ => engine.real_estimate(t.slot, j, t.scheme)?,
+            };
+            estimates.push(e);
+            progress.step(&t.spec.name, engine.evals);
+        }
+        if t.scheme != Scheme::ComplexStep {
+            return Ok(estimates);
+        }
+        if let Some(m) = self.off_the_scalar_path(engine, t.slot, t.indices, &estimates)? {
+            notes.push(format!(
+                "`{}`: the complex step gave {} at {} where real differences give {}: the generic forward \
+                 leaves the Scalar path (to_f64, `as`, a real-only function); Ridders' method in f64 was used instead",
+                t.spec.name,
+                num(m.complex),
+                t.args_tensor.index_of(m.index),
+                num(m.real)
+            ));
+            t.scheme = Scheme::Ridders;
+            return t
+                .indices
+                .iter()
+                .map(|&k| engine.real_estimate(t.slot, k, Scheme::Ridders))
+                .collect();
+        }
+        Ok(estimates)
+    }
+
+    /// Cross-checks two seeded elements of a complex-step tensor (not at a
+    /// kink) against real differences in `f64`. Returns the first element where
+    /// they disagree beyond both error bars, with the two values.
+    fn off_the_scalar_path<L: Forward + ?Sized>(
+        &self,
+        engine: &mut Engine<'_, L>,
+        slot: usize,
+        indices: &[usize],
+        estimates: &[Estimate],
+    ) -> Result<Option<Mismatch>, Error> {
+        // Up to four seeded candidates, for two that are not at a kink (where
+        // the complex step gives a one-sided value and real differences the
+        // average, both rightly).
+        let picks = sample(indices.len(), Some(4), self.seed ^ 0x5CA1_AB1E, slot);
+        let mut compared = 0;
+        for k in picks {
+            let (j, cs) = (indices[k], &estimates[k]);
+            if !cs.value.is_finite() || compared == 2 {
+                continue;
+            }
+            if engine.kink(slot, j)?.is_some() {
+                continue;
+            }
+            compared += 1;
+            let Some((check, rounding)) = engine.quick_check(slot, j)? else {
+                continue;
+            };
+            let size = cs.scale.max(check.abs());
+            if (cs.value - check).abs() <= 4.0 * cs.error + 100.0 * rounding + 1e-8 * size {
+                continue;
+            }
+            // The cheap check is not conclusive on its own: confirm with
+            // Ridders' method and its error bar.
+            let r = engine.real_estimate(slot, j, Scheme::Ridders)?;
+            if r.value.is_finite() && (cs.value - r.value).abs() > 4.0 * (r.error + cs.error) {
+                return Ok(Some(Mismatch {
+                    index: j,
+                    complex: cs.value,
+                    real: r.value,
+                }));
+            }
+        }
+        Ok(None)
+    }
+
+    /// Compares, summarises and diagnoses one tensor.
+    fn row<L: Forward + ?Sized>(
+        &self,
+        t: TensorCase<'_, L::Real>,
+        estimates: Vec<Estimate>,
+        engine: &mut Engine<'_, L>,
+        evidence: &Evidence,
+        layer_eps: f64,
+        notes: &mut Vec<String>,
+    ) -> Result<Row, Error> {
+        let shape = t.args_tensor.shape().to_vec();
+        let same_shape = t
+            .grad
+            .as_ref()
+            .is_some_and(|g| g.shape() == shape.as_slice());
+        let inputs: Vec<f64> = t.args_tensor.data().iter().map(|v| v.as_f64()).collect();
+        let mut prober = SlotProber {
+            engine,
+            slot: t.slot,
+            scheme: t.scheme,
+        };
+        let Compared {
+            elements,
+            joint_kink,
+        } = compare::compare(
+            t.grad.as_ref().filter(|_| same_shape),
+            &inputs,
+            t.indices,
+            estimates,
+            &self.tolerance,
+            layer_eps,
+            &mut prober,
+        )?;
+        let facts = RowFacts {
+            returned: t.grad.is_some(),
+            same_shape,
+            all_finite: t
+                .grad
+                .as_ref()
+                .is_none_or(|g| g.data().iter().all(|v| v.is_finite())),
+            joint_kink: joint_kink.as_ref(),
+            evidence,
+            kinks_fail: self.kinks_fail,
+        };
+        let s = summarize(&elements, &facts);
+        if self.tolerance.is_fixed()
+            && !elements.is_empty()
+            && elements.iter().all(|e| e.bound >= e.numeric.abs())
+        {
+            notes.push(format!(
+                "`{}`: the fixed bound is at least every reference value, so an all-zero gradient would pass there",
+                t.spec.name
+            ));
+        }
+        let diagnosis = diagnose(
+            &shape,
+            t.grad.as_ref(),
+            &elements,
+            joint_kink.as_ref(),
+            evidence,
+        );
+        Ok(Row {
+            name: t.spec.name.clone(),
+            role: t.spec.role,
+            gradient_shape: t.grad.as_ref().map(|g| g.shape().to_vec()),
+            scheme: t.scheme,
+            checked: elements.len(),
+            total: shape.iter().product(),
+            failing: s.failing,
+            kinks: s.kinks,
+            unchecked: s.unchecked,
+            wide: s.wide,
+            worst: s.worst.map(|k| Worst {
+                index: MultiIndex::from_flat(&shape, elements[k].index),
+                analytic: elements[k].analytic,
+                numeric: elements[k].numeric,
+                bound: elements[k].bound,
+            }),
+            max_abs_error: s.max_abs_error,
+            max_rel_error: s.max_rel_error,
+            verdict: s.verdict,
+            joint_kink,
+            diagnosis,
+            shape,
+            elements,
+        })
+    }
+}
+
+/// An element where the complex step and real differences disagree.
+struct Mismatch {
+    index: usize,
+    complex: f64,
+    real: f64,
+}
+
+/// One tensor's inputs to its row.
+struct TensorCase<'a, R> {
+    spec: &'a Slot,
+    slot: usize,
+    args_tensor: &'a Tensor<R>,
+    grad: Option<Tensor<f64>>,
+    indices: &'a [usize],
+    scheme: Scheme,
+}
+
+/// Counts checked elements and calls the progress callback.
+struct Tally<'a> {
+    done: usize,
+    total: usize,
+    callback: Option<&'a (dyn Fn(&Progress) + Send + Sync)>,
+}
+
+impl Tally<'_> {
+    fn step(&mut self, tensor: &str, forward_evals: usize) {
+        self.done += 1;
+        if let Some(f) = self.callback {
+            f(&Progress {
+                tensor: tensor.to_string(),
+                done: self.done,
+                total: self.total,
+                forward_evals,
+            });
+        }
+    }
+}
+
+/// The reference's probes for one tensor, as the comparison asks for them.
+struct SlotProber<'e, 'a, L: Forward + ?Sized> {
+    engine: &'e mut Engine<'a, L>,
+    slot: usize,
+    scheme: Scheme,
+}
+
+impl<L: Forward + ?Sized> Prober for SlotProber<'_, '_, L> {
+    fn kink(&mut self, j: usize) -> Result<Option<KinkProbe>, Error> {
+        let probe = self.engine.kink(self.slot, j)?;
+        // For the complex step only a kink at the point itself matters: one
+        // that is merely near is outside its (imaginary) stencil.
+        Ok(probe.filter(|p| self.scheme != Scheme::ComplexStep || p.at_point))
+    }
+
+    fn joint(&mut self, group: &[usize]) -> Result<Option<KinkProbe>, Error> {
+        self.engine.joint(self.slot, group)
+    }
+
+    fn second_look(&mut self, j: usize, first: &Estimate) -> Result<Option<Estimate>, Error> {
+        match self.scheme {
+            Scheme::ComplexStep => self.engine.complex_second_look(self.slot, j, first),
+            _ => Ok(None),
+        }
+    }
+}
+
+/// More gradients than differentiable tensors: refused, naming both
+/// counts, rather than truncated (which would shift rows).
+fn check_gradient_count<T>(
+    layer: &str,
+    differentiable: &[(usize, &Slot)],
+    g: &Gradients<T>,
+) -> Result<(), Error> {
+    if g.len() > differentiable.len() {
+        let names: Vec<String> = differentiable
+            .iter()
+            .map(|(_, s)| format!("`{}`", s.name))
+            .collect();
+        return Err(Error::GradientCount {
+            layer: layer.to_string(),
+            expected: differentiable.len(),
+            names: names.join(", "),
+            found: g.len(),
+        });
+    }
+    Ok(())
+}
+
+/// The flat positions to check in a tensor of `len` elements: all of them,
+/// or `max` drawn without replacement (seeded by the audit's seed and the
+/// tensor's position), in ascending order.
+pub(crate) fn sample(len: usize, max: Option<usize>, seed: u64, slot: usize) -> Vec<usize> {
+    let mut all: Vec<usize> = (0..len).collect();
+    let Some(max) = max.filter(|&m| m < len) else {
+        return all;
+    };
+    let mut rng = rand::rngs::StdRng::seed_from_u64(
+        seed ^ (slot as u64 + 1).wrapping_mul(0x9E37_79B9_7F4A_7C15),
+    );
+    for k in 0..max {
+        let pick = rng.random_range(k..len);
+        all.swap(k, pick);
+    }
+    all.truncate(max);
+    all.sort_unstable();
+    all
+}
+
+fn short_type_name<L: ?Sized>() -> String {
+    let full = std::any::type_name::<L>();
+    let base = full.split('<').next().unwrap_or(full);
+    let short = base.rsplit("::").next().unwrap_or(base);
+    match full.find('<') {
+        Some(i) => format!("{short}{}", &full[i..]),
+        None => short.to_string(),
+    }
+}
+
+fn first_difference<T: Real>(sig: &Signature, a: &[Tensor<T>], b: &[Tensor<T>]) -> Option<String> {
+    for (slot, (x, y)) in sig.outputs().iter().zip(a.iter().zip(b)) {
+        if let Some(d) = first_tensor_difference(x, y) {
+            return Some(format!("output `{}` {d}", slot.name));
+        }
+    }
+    None
+}
+
+fn first_tensor_difference<T: Real>(a: &Tensor<T>, b: &Tensor<T>) -> Option<String> {
+    if a.shape() != b.shape() {
+        return Some("changes shape between calls".to_string());
+    }
+    a.data()
+        .iter()
+        .zip(b.data())
+        .position(|(x, y)| x.as_f64().to_bits() != y.as_f64().to_bits())
+        .map(|j| {
+            format!(
+                "at {}: {} then {}",
+                a.index_of(j),
+                num(a.data()[j].as_f64()),
+                num(b.data()[j].as_f64())
+            )
+        })
+}
+
+fn first_nonfinite<T: Real>(sig: &Signature, outputs: &[Tensor<T>]) -> Option<String> {
+    for (slot, y) in sig.outputs().iter().zip(outputs) {
+        if let Some(j) = y.data().iter().position(|v| !v.is_finite()) {
+            return Some(format!(
+                "output `{}` at {} (in {})",
+                slot.name,
+                y.index_of(j),
+                T::NAME
+            ));
+        }
+    }
+    None
+}

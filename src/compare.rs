@@ -1,0 +1,328 @@
+//! Element verdicts: each analytic value against its numeric reference and
+//! error bound, the kink test for elements that disagree, and the joint
+//! test for kinks that interact.
+
+use crate::error::Error;
+use crate::scheme::{Estimate, KinkProbe};
+use crate::tensor::Tensor;
+use crate::tolerance::Tolerance;
+
+/// One element's comparison.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ElementCheck {
+    /// Its flat (row-major) position in the tensor.
+    pub index: usize,
+    /// The backward's value (NaN when no gradient of the right shape exists).
+    pub analytic: f64,
+    /// The reference value.
+    pub numeric: f64,
+    /// The reference's estimated error.
+    pub error: f64,
+    /// Σ|terms| of the derivative (see [`Estimate::scale`]).
+    pub scale: f64,
+    /// The bound that applied.
+    pub bound: f64,
+    /// `false` when the reference's truncation error was above 1% of the
+    /// derivative's size: the bound is wide there (information only).
+    pub decided: bool,
+    /// The outcome.
+    pub status: ElementStatus,
+}
+
+impl ElementCheck {
+    /// |analytic − numeric| over the bound (∞ for a non-finite value or a
+    /// zero bound with a difference).
+    pub fn excess(&self) -> f64 {
+        let diff = (self.analytic - self.numeric).abs();
+        let ratio = if self.bound > 0.0 {
+            diff / self.bound
+        } else if diff > 0.0 {
+            f64::INFINITY
+        } else {
+            0.0
+        };
+        if ratio.is_nan() {
+            f64::INFINITY
+        } else {
+            ratio
+        }
+    }
+}
+
+/// The outcome for one element.
+#[derive(Clone, Copy, Debug, PartialEq)]
+#[non_exhaustive]
+pub enum ElementStatus {
+    /// Within the bound.
+    Agrees,
+    /// Beyond the bound.
+    Disagrees,
+    /// Analytic or numeric value is NaN or infinite.
+    NotFinite,
+    /// At a non-differentiable point: the one-sided derivatives differ.
+    Kink {
+        /// One-sided derivatives there.
+        probe: KinkProbe,
+        /// The analytic value lies between them (a valid one-sided
+        /// derivative or subgradient).
+        fits: bool,
+    },
+    /// Not compared: the element itself is ±∞ or NaN, so it cannot be
+    /// moved. Its analytic value must still be finite.
+    NonFiniteInput,
+}
+
+impl ElementStatus {
+    /// `true` for a kink (the element is listed apart).
+    pub fn is_kink(self) -> bool {
+        matches!(self, ElementStatus::Kink { .. })
+    }
+
+    /// `true` for `Disagrees` and `NotFinite`.
+    pub fn is_failure(self) -> bool {
+        matches!(self, ElementStatus::Disagrees | ElementStatus::NotFinite)
+    }
+}
+
+/// Two kink elements moved together whose analytic values do not add up
+/// to a value between the one-sided derivatives of the joint move, though
+/// the move shows their kinks interact (one tie of one max).
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct JointKink {
+    /// The two flat positions.
+    pub elements: [usize; 2],
+    /// Σ analytic over them.
+    #[serde(with = "crate::report::float_text")]
+    pub analytic_sum: f64,
+    /// One-sided derivative of the joint move from the left.
+    #[serde(with = "crate::report::float_text")]
+    pub left: f64,
+    /// One-sided derivative of the joint move from the right.
+    #[serde(with = "crate::report::float_text")]
+    pub right: f64,
+}
+
+/// What the comparison may ask of the reference for one tensor.
+pub(crate) trait Prober {
+    /// The one-sided kink test at element `j`.
+    fn kink(&mut self, j: usize) -> Result<Option<KinkProbe>, Error>;
+    /// One-sided derivatives of moving elements `group` together.
+    fn joint(&mut self, group: &[usize]) -> Result<Option<KinkProbe>, Error>;
+    /// A second look at an element that disagrees: the estimate with its
+    /// error bar widened by what the forward's own rounding does there
+    /// (`None` when there is nothing to add).
+    fn second_look(&mut self, j: usize, first: &Estimate) -> Result<Option<Estimate>, Error>;
+}
+
+/// The elements of one tensor, compared.
+pub(crate) struct Compared {
+    pub elements: Vec<ElementCheck>,
+    pub joint_kink: Option<JointKink>,
+}
+
+/// Every pair of kink elements is tested jointly up to this many kinks;
+/// above it, neighbours in flat order and a fixed set of other pairs.
+const ALL_PAIRS_UP_TO: usize = 16;
+const OTHER_PAIRS: usize = 64;
+
+/// Compares the checked elements of one tensor.
+///
+/// `grad` is the backward's gradient when it has the tensor's shape;
+/// `indices` the flat positions checked, with their `estimates`;
+/// `inputs` the tensor's own values (to skip non-finite ones).
+pub(crate) fn compare(
+    grad: Option<&Tensor<f64>>,
+    inputs: &[f64],
+    indices: &[usize],
+    estimates: Vec<Estimate>,
+    tol: &Tolerance,
+    layer_eps: f64,
+    prober: &mut dyn Prober,
+) -> Result<Compared, Error> {
+    let mut elements = Vec::with_capacity(estimates.len());
+    for (&j, est) in indices.iter().zip(estimates) {
+        let analytic = grad.map_or(f64::NAN, |g| g.data()[j]);
+        let mut e = judge(j, analytic, &est, tol, layer_eps);
+        if !inputs[j].is_finite() {
+            e.status = if analytic.is_finite() {
+                ElementStatus::NonFiniteInput
+            } else {
+                ElementStatus::NotFinite
+            };
+        } else if e.status == ElementStatus::Disagrees {
+            match prober.kink(j)? {
+                Some(probe) if probe.at_point => {
+                    e.status = ElementStatus::Kink {
+                        probe,
+                        fits: fits(analytic, &probe, e.bound),
+                    };
+                }
+                // A kink inside the reference's stencil but not at the
+                // point: the reference straddles it; the one-sided values
+                // it gives at the point bound what a correct value can be.
+                Some(probe) => {
+                    if fits(analytic, &probe, e.bound) {
+                        e.status = ElementStatus::Agrees;
+                        e.decided = false;
+                    }
+                }
+                // Smooth here: a second look measures what the forward's
+                // own rounding does to the reference at this point.
+                None => {
+                    if let Some(wider) = prober.second_look(j, &est)? {
+                        e = judge(j, analytic, &wider, tol, layer_eps);
+                    }
+                }
+            }
+        }
+        elements.push(e);
+    }
+    // Once a tensor has a kink, its agreeing elements are probed too: an
+    // element that matched the reference by the luck of a tie is at a kink
+    // all the same and belongs in the joint test below.
+    if elements.iter().any(|e| e.status.is_kink()) {
+        for e in elements.iter_mut() {
+            if e.status == ElementStatus::Agrees {
+                if let Some(probe) = prober.kink(e.index)?.filter(|p| p.at_point) {
+                    e.status = ElementStatus::Kink { probe, fits: true };
+                }
+            }
+        }
+    }
+    let joint_kink = joint_test(&elements, prober)?;
+    Ok(Compared {
+        elements,
+        joint_kink,
+    })
+}
+
+/// The verdict on one element from its estimate alone.
+fn judge(j: usize, analytic: f64, est: &Estimate, tol: &Tolerance, layer_eps: f64) -> ElementCheck {
+    // The bound does not depend on a missing or non-finite analytic value
+    // (the status fails it anyway), so diagnoses can still use it.
+    let a_for_bound = if analytic.is_finite() {
+        analytic
+    } else {
+        est.value
+    };
+    let bound = tol.bound(est, a_for_bound, layer_eps);
+    let diff = (analytic - est.value).abs();
+    let status = if !(analytic.is_finite() && est.value.is_finite()) {
+        ElementStatus::NotFinite
+    } else if Tolerance::accepts(diff, bound) {
+        ElementStatus::Agrees
+    } else {
+        ElementStatus::Disagrees
+    };
+    ElementCheck {
+        index: j,
+        analytic,
+        numeric: est.value,
+        error: est.error,
+        scale: est.scale,
+        bound,
+        decided: est.conclusive,
+        status,
+    }
+}
+
+/// `true` if `analytic` lies between the one-sided derivatives (with the
+/// element's bound and the probe's allowance on each side).
+fn fits(analytic: f64, probe: &KinkProbe, bound: f64) -> bool {
+    let slack = bound + probe.noise;
+    let lo = probe.left.min(probe.right) - slack;
+    let hi = probe.left.max(probe.right) + slack;
+    (lo..=hi).contains(&analytic)
+}
+
+/// Kinks that interact must share one gradient. Two kink elements moved
+/// together have one-sided derivatives equal to the sums of their own when
+/// their kinks are separate (two ReLUs at 0, a clip at both bounds): a
+/// valid subgradient of each then fits, and nothing more is required. When
+/// the joint move's one-sided derivatives differ from those sums, the kinks
+/// interact (a tie of one max), and the two analytic values must add up to
+/// a value between the joint one-sided derivatives: ties routed to every
+/// maximum fit one by one but not together.
+fn joint_test(
+    elements: &[ElementCheck],
+    prober: &mut dyn Prober,
+) -> Result<Option<JointKink>, Error> {
+    let kinked: Vec<(&ElementCheck, KinkProbe)> = elements
+        .iter()
+        .filter_map(|e| match e.status {
+            ElementStatus::Kink { probe, .. } => Some((e, probe)),
+            _ => None,
+        })
+        .collect();
+    for (a, b) in pairs(kinked.len()) {
+        let ((ea, pa), (eb, pb)) = (&kinked[a], &kinked[b]);
+        let Some(joint) = prober.joint(&[ea.index, eb.index])? else {
+            continue;
+        };
+        let slack = pa.noise + pb.noise + joint.noise + ea.bound + eb.bound;
+        let separate = (joint.left - (pa.left + pb.left)).abs() <= slack
+            && (joint.right - (pa.right + pb.right)).abs() <= slack;
+        if separate {
+            continue;
+        }
+        let sum = ea.analytic + eb.analytic;
+        if !fits(sum, &joint, ea.bound + eb.bound) {
+            return Ok(Some(JointKink {
+                elements: [ea.index, eb.index],
+                analytic_sum: sum,
+                left: joint.left,
+                right: joint.right,
+            }));
+        }
+    }
+    Ok(None)
+}
+
+/// The pairs (a, b), a < b, of `n` kink elements the joint test visits:
+/// all of them up to [`ALL_PAIRS_UP_TO`] kinks; above that, neighbours in
+/// flat order (ties of one pooling window sit close together) and
+/// [`OTHER_PAIRS`] more spread evenly over the rest.
+fn pairs(n: usize) -> Vec<(usize, usize)> {
+    if n <= ALL_PAIRS_UP_TO {
+        return (0..n)
+            .flat_map(|a| (a + 1..n).map(move |b| (a, b)))
+            .collect();
+    }
+    let mut out: Vec<(usize, usize)> = (0..n - 1).map(|a| (a, a + 1)).collect();
+    let total = n * (n - 1) / 2;
+    let stride = (total / OTHER_PAIRS).max(1);
+    let mut k = 0;
+    for a in 0..n {
+        for b in a + 2..n {
+            if k % stride == 0 && out.len() < n - 1 + OTHER_PAIRS {
+                out.push((a, b));
+            }
+            k += 1;
+        }
+    }
+    out
+}
+
+/// |a − n| / max(|a|, |n|), with 0/0 = 0 and NaN for non-finite input.
+pub(crate) fn relative_error(a: f64, n: f64) -> f64 {
+    let d = (a - n).abs();
+    if d == 0.0 {
+        return 0.0;
+    }
+    d / a.abs().max(n.abs())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn pairs_cover_small_sets_and_neighbours_of_large_ones() {
+        assert_eq!(pairs(3), vec![(0, 1), (0, 2), (1, 2)]);
+        assert!(pairs(1).is_empty());
+        let big = pairs(40);
+        assert!(big.contains(&(0, 1)) && big.contains(&(38, 39)));
+        assert!(big.len() <= 39 + OTHER_PAIRS);
+        assert!(big.iter().all(|&(a, b)| a < b && b < 40));
+    }
+}

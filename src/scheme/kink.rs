@@ -1,0 +1,140 @@
+//! The one-sided test for non-differentiable points (ReLU at 0, |x| at 0,
+//! max-pool ties).
+//!
+//! With the gap between the one-sided differences
+//! Δ(s) = [φ(x+s) − 2φ(x) + φ(x−s)]/s, a smooth φ gives Δ(s) ≈ s·φ″, which
+//! shrinks linearly with the step, while a kink at x leaves Δ(s) ≈ J, the
+//! jump of φ′. So the ratio Δ(h/4)/Δ(h) is about 1/4 for smooth φ and about
+//! 1 at a kink; a kink further out than h/4 but within h shows a ratio near
+//! 0. The test follows from the Taylor expansion of the one-sided
+//! differences (DEVELOPERS.md, "Kinks").
+
+use super::{Line, Sample};
+
+/// What the one-sided kink test saw at a point.
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct KinkProbe {
+    /// One-sided derivative from the left, (φ(x) − φ(x − s))/s.
+    pub left: f64,
+    /// One-sided derivative from the right, (φ(x + s) − φ(x))/s.
+    pub right: f64,
+    /// Allowance on each side for rounding and for the curvature of φ
+    /// over the step (the one-sided slopes' change between steps h and h/4).
+    pub noise: f64,
+    /// `true` if the kink lies within a quarter step of the point; `false`
+    /// if it lies further out but inside the step (the point itself is
+    /// smooth, but a difference over the full step is not).
+    pub at_point: bool,
+}
+
+/// Gaps below this many times their rounding count as smooth.
+const NOISE_MULTIPLE: f64 = 10.0;
+
+/// The one-sided kink test: four evaluations φ(x ± h), φ(x ± h/4) against
+/// φ(x). Returns the one-sided derivatives at step h/4 when φ is not smooth
+/// within ±h, `None` when it is.
+pub(crate) fn kink_test(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
+    let s = OneSided::measure(line, h)?;
+    if s.gap_wide.abs() <= NOISE_MULTIPLE * s.noise_wide
+        && s.gap_narrow.abs() <= NOISE_MULTIPLE * s.noise_narrow
+    {
+        return None;
+    }
+    let ratio = s.gap_narrow / s.gap_wide;
+    if (ratio - 0.25).abs() <= 0.15 {
+        return None;
+    }
+    let at_point = ratio.abs() > 0.5;
+    // A kink at the point leaves the one-sided slopes nearly the same at h
+    // and h/4; a function that merely oscillates faster than the step does
+    // not, and is no kink (it must not excuse a disagreement).
+    if at_point && !s.stable(0.5) {
+        return None;
+    }
+    Some(KinkProbe {
+        left: s.left,
+        right: s.right,
+        noise: s.allowance(),
+        at_point,
+    })
+}
+
+/// One-sided derivatives at step h/4 along a line (a joint move of several
+/// elements), whether or not it has a kink there. `None` when they are not
+/// stable between steps h and h/4: φ is rough on that scale, and no
+/// one-sided value can be trusted.
+pub(crate) fn joint_probe(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
+    let s = OneSided::measure(line, h)?;
+    s.stable(0.25).then_some(KinkProbe {
+        left: s.left,
+        right: s.right,
+        noise: s.allowance(),
+        at_point: true,
+    })
+}
+
+/// The four evaluations of the test and what they give.
+struct OneSided {
+    /// D₊ − D₋ at step h, and at step h/4.
+    gap_wide: f64,
+    gap_narrow: f64,
+    /// Rounding allowance of those gaps.
+    noise_wide: f64,
+    noise_narrow: f64,
+    /// D₋ and D₊ at step h/4.
+    left: f64,
+    right: f64,
+    /// D₋ and D₊ at step h.
+    left_wide: f64,
+    right_wide: f64,
+}
+
+impl OneSided {
+    /// `None` if any evaluation is not finite.
+    fn measure(line: &mut impl Line, h: f64) -> Option<OneSided> {
+        let wide = [line.at(h), line.at(-h)];
+        let narrow = [line.at(h / 4.0), line.at(-h / 4.0)];
+        if !wide.iter().chain(&narrow).all(|s| s.finite) {
+            return None;
+        }
+        // Rounding acts on the outputs that moved, in the line's precision.
+        let touched = wide
+            .iter()
+            .chain(&narrow)
+            .map(|s| s.touched)
+            .fold(0.0, f64::max);
+        let rounding = 16.0 * line.eps() * touched;
+        let sides = |[p, m]: [Sample; 2]| (-m.delta / -m.step, p.delta / p.step);
+        let (left_wide, right_wide) = sides(wide);
+        let (left, right) = sides(narrow);
+        Some(OneSided {
+            gap_wide: right_wide - left_wide,
+            gap_narrow: right - left,
+            noise_wide: rounding / h,
+            noise_narrow: rounding / (h / 4.0),
+            left,
+            right,
+            left_wide,
+            right_wide,
+        })
+    }
+
+    /// Rounding of the narrow slopes, plus how much they still move with
+    /// the step (curvature of φ on either side).
+    fn allowance(&self) -> f64 {
+        let drift = (self.left - self.left_wide)
+            .abs()
+            .max((self.right - self.right_wide).abs());
+        NOISE_MULTIPLE * self.noise_narrow + drift
+    }
+
+    /// The one-sided slopes at h and h/4 agree within `fraction` of the
+    /// largest of them (plus rounding).
+    fn stable(&self, fraction: f64) -> bool {
+        let size = [self.left, self.right, self.left_wide, self.right_wide]
+            .iter()
+            .fold(0.0_f64, |m, v| m.max(v.abs()));
+        let slack = fraction * size + NOISE_MULTIPLE * self.noise_wide;
+        (self.left - self.left_wide).abs() <= slack && (self.right - self.right_wide).abs() <= slack
+    }
+}

@@ -1,0 +1,306 @@
+//! Difference schemes: numerical derivatives of one scalar along one
+//! coordinate, each with an estimate of its own error, and the engine that
+//! applies them to a layer's arguments.
+//!
+//! Every real-arithmetic scheme works on a [`Line`]: the probe scalar
+//! `φ(t)` as one element (or a group of elements) of one tensor moves by
+//! `t`. The audit supplies lines over layer arguments (`engine`); the public
+//! functions here supply lines over plain scalar functions, so the same code
+//! is checked against published values.
+//!
+//! | file | what |
+//! |---|---|
+//! | `central.rs` | central differences at h and 2h |
+//! | `ridders.rs` | Ridders' extrapolation, cross-checked at a small step |
+//! | `kink.rs` | the one-sided test for non-differentiable points |
+//! | `complex.rs` | the complex step over a generic forward |
+//! | `engine.rs` | lines over a layer's arguments, and which scheme runs |
+
+use std::fmt;
+use std::str::FromStr;
+
+mod central;
+mod complex;
+pub(crate) mod engine;
+mod kink;
+mod ridders;
+
+pub use kink::KinkProbe;
+pub(crate) use kink::{joint_probe, kink_test};
+
+/// Which numerical reference produced a derivative.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+#[non_exhaustive]
+pub enum Scheme {
+    /// Complex step, Im φ(x + ih)/h: one evaluation, no cancellation
+    /// (Squire & Trapp, "Using complex variables to estimate derivatives of
+    /// real functions", SIAM Review 40(1), 1998; Martins, Sturdza & Alonso,
+    /// "The complex-step derivative approximation", ACM TOMS 29(3), 2003).
+    /// Needs a [`GenericForward`](crate::GenericForward).
+    ComplexStep,
+    /// Ridders' method: central differences at shrinking steps,
+    /// extrapolated to a zero step by repeated Richardson elimination of the
+    /// even error terms (C. J. F. Ridders, "Accurate computation of F′(x)
+    /// and F′(x)F″(x)", Advances in Engineering Software 4(2):75–76, 1982).
+    Ridders,
+    /// Central difference (φ(x+h) − φ(x−h))/2h with h = ε^(1/3)·max(|x|, 1),
+    /// made exactly representable; error from the spread against step 2h.
+    Central,
+}
+
+impl Scheme {
+    /// The name shown in reports: `complex-step`, `ridders`, `central`.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Scheme::ComplexStep => "complex-step",
+            Scheme::Ridders => "ridders",
+            Scheme::Central => "central",
+        }
+    }
+}
+
+/// Parses a name as printed by [`Scheme::as_str`] (case and `_`/`-`
+/// insensitive; `complex` is accepted for `complex-step`).
+///
+/// ```
+/// use plumbline::Scheme;
+/// assert_eq!("ridders".parse::<Scheme>(), Ok(Scheme::Ridders));
+/// assert!("forward".parse::<Scheme>().is_err());
+/// ```
+impl FromStr for Scheme {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Scheme, String> {
+        match s.trim().to_ascii_lowercase().replace('_', "-").as_str() {
+            "complex-step" | "complex" => Ok(Scheme::ComplexStep),
+            "ridders" => Ok(Scheme::Ridders),
+            "central" => Ok(Scheme::Central),
+            _ => Err("expected `complex-step`, `ridders` or `central`".to_string()),
+        }
+    }
+}
+
+impl fmt::Display for Scheme {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+/// A numerical derivative with its estimated uncertainty.
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct Estimate {
+    /// The derivative.
+    pub value: f64,
+    /// Estimated absolute error of `value` (already inflated where the raw
+    /// estimate is known to be optimistic).
+    pub error: f64,
+    /// Σ|terms| of the derivative: for a probe φ = Σ wᵢyᵢ, Σ|wᵢ ∂yᵢ/∂x|.
+    /// Sets the rounding floor of a backward that sums those terms.
+    pub scale: f64,
+    /// Σ|wᵢyᵢ| over the outputs this coordinate moves, divided by
+    /// max(|x|, 1): the size of the forward quantities a backward computes
+    /// this element from. It keeps rounding in a correct backward (e.g.
+    /// `1 − tanh²` near saturation) from reading as a bug.
+    pub forward_scale: f64,
+    /// Function evaluations spent.
+    pub evals: usize,
+    /// The widest step the value relied on (0 for the complex step, whose
+    /// step is imaginary): how far from x the value looked.
+    pub step: f64,
+    /// `false` when the scheme's truncation error (not its rounding)
+    /// exceeds 1% of the derivative's size: the error bar is wide, and an
+    /// element judged against it is reported as such. It is information,
+    /// not a verdict: an element within its bound agrees.
+    pub conclusive: bool,
+}
+
+impl Estimate {
+    /// An estimate that could not be formed (the forward was not finite
+    /// anywhere near the point): NaN, which never passes.
+    pub(crate) fn not_finite(evals: usize) -> Estimate {
+        Estimate {
+            value: f64::NAN,
+            error: f64::NAN,
+            scale: 0.0,
+            forward_scale: 0.0,
+            evals,
+            step: 0.0,
+            conclusive: false,
+        }
+    }
+}
+
+/// Truncation error, relative to max(|derivative|, Σ|terms|), above which a
+/// reference counts as wide.
+pub(crate) const WIDE: f64 = 1e-2;
+
+pub(crate) fn conclusive(truncation: f64, value: f64, scale: f64) -> bool {
+    truncation <= WIDE * value.abs().max(scale)
+}
+
+/// One evaluation of the probe scalar, measured against the point itself.
+#[derive(Clone, Copy, Debug, Default)]
+pub(crate) struct Sample {
+    /// The step actually applied (after rounding x + t to the working
+    /// precision).
+    pub step: f64,
+    /// φ(x + step) − φ(x), summed over the outputs that changed, so that
+    /// the outputs the move leaves alone add no rounding.
+    pub delta: f64,
+    /// Σ|wᵢyᵢ| over the outputs that changed: what the forward's rounding
+    /// acts on in this evaluation.
+    pub touched: f64,
+    /// Every output was finite.
+    pub finite: bool,
+}
+
+/// A central difference over ±h.
+#[derive(Clone, Copy, Debug, Default)]
+pub(crate) struct Pair {
+    /// (φ(x + h) − φ(x − h)) / width.
+    pub derivative: f64,
+    /// Σ|wᵢ (yᵢ(x + h) − yᵢ(x − h))| / width: the terms of the quotient.
+    pub terms: f64,
+    /// Σ|wᵢyᵢ| over the outputs that moved, larger of the two ends.
+    pub touched: f64,
+    /// The full width t₊ − t₋ actually used.
+    pub width: f64,
+    /// Both ends finite.
+    pub finite: bool,
+}
+
+impl Pair {
+    /// The rounding of this quotient: a few ulps of the outputs that moved,
+    /// over the width.
+    pub fn rounding(&self, eps: f64) -> f64 {
+        4.0 * eps * self.touched / self.width
+    }
+}
+
+/// The probe scalar along one coordinate.
+pub(crate) trait Line {
+    /// Machine epsilon of the arithmetic the line evaluates in.
+    fn eps(&self) -> f64;
+    /// The coordinate's value at the point.
+    fn x(&self) -> f64;
+    /// The typical scale of a step: max(|x|, 1).
+    fn scale(&self) -> f64 {
+        self.x().abs().max(1.0)
+    }
+    /// φ at x + t, measured against φ(x).
+    fn at(&mut self, t: f64) -> Sample;
+    /// A central difference over ±h.
+    fn pair(&mut self, h: f64) -> Pair;
+}
+
+/// The largest step ≤ `h` (shrunk by 4 each try, at most 40 times) at
+/// which both φ(x ± step) are finite: steps never leave the region where
+/// the forward is defined. `None` if no such step exists (x sits on the
+/// edge of the domain).
+pub(crate) fn finite_pair(line: &mut impl Line, mut h: f64) -> Option<(f64, Pair, usize)> {
+    let mut evals = 0;
+    for _ in 0..40 {
+        let p = line.pair(h);
+        evals += 2;
+        if p.finite && p.width > 0.0 {
+            return Some((h, p, evals));
+        }
+        h /= 4.0;
+    }
+    None
+}
+
+/// A [`Line`] over a plain scalar function in `f64`.
+pub(crate) struct ScalarLine<F> {
+    f: F,
+    x: f64,
+    at_x: f64,
+}
+
+impl<F: FnMut(f64) -> f64> ScalarLine<F> {
+    pub(crate) fn new(mut f: F, x: f64) -> Self {
+        let at_x = f(x);
+        ScalarLine { f, x, at_x }
+    }
+}
+
+impl<F: FnMut(f64) -> f64> Line for ScalarLine<F> {
+    fn eps(&self) -> f64 {
+        f64::EPSILON
+    }
+    fn x(&self) -> f64 {
+        self.x
+    }
+    fn at(&mut self, t: f64) -> Sample {
+        let xt = self.x + t;
+        let value = (self.f)(xt);
+        let delta = value - self.at_x;
+        Sample {
+            step: xt - self.x,
+            delta,
+            touched: if delta == 0.0 {
+                0.0
+            } else {
+                value.abs().max(self.at_x.abs())
+            },
+            finite: value.is_finite(),
+        }
+    }
+    fn pair(&mut self, h: f64) -> Pair {
+        let p = self.at(h);
+        let m = self.at(-h);
+        let width = p.step - m.step;
+        let derivative = (p.delta - m.delta) / width;
+        Pair {
+            derivative,
+            terms: derivative.abs(),
+            touched: p.touched.max(m.touched),
+            width,
+            finite: p.finite && m.finite,
+        }
+    }
+}
+
+/// Central-difference derivative of a scalar function at `x`, with the step
+/// h = ε^(1/3)·max(|x|, 1) made exactly representable (shrunk where the
+/// function is not finite at x ± h), and an error estimate from the spread
+/// against step 2h.
+///
+/// ```
+/// let d = plumbline::scheme::central_difference(f64::sin, 1.0);
+/// assert!((d.value - 1.0_f64.cos()).abs() < 1e-9);
+/// assert!(d.error < 1e-8);
+/// ```
+pub fn central_difference(f: impl FnMut(f64) -> f64, x: f64) -> Estimate {
+    central::estimate(&mut ScalarLine::new(f, x))
+}
+
+/// Ridders' derivative of a scalar function at `x` from the initial
+/// (largest) step `h0`, cross-checked against a small-step Richardson
+/// estimate; the error estimate is the extrapolation's, inflated 10×, and
+/// never below the distance to that check.
+///
+/// (C. J. F. Ridders, "Accurate computation of F′(x) and F′(x)F″(x)",
+/// Advances in Engineering Software 4(2):75–76, 1982.)
+///
+/// ```
+/// let d = plumbline::scheme::ridders_derivative(f64::exp, 0.0, 0.1);
+/// assert!((d.value - 1.0).abs() < 1e-13);
+/// assert!(d.evals <= 24); // 4 for the cross-check, at most 20 for the extrapolation
+/// ```
+pub fn ridders_derivative(f: impl FnMut(f64) -> f64, x: f64, h0: f64) -> Estimate {
+    ridders::estimate_from(&mut ScalarLine::new(f, x), h0)
+}
+
+/// One-sided derivatives of a scalar function at `x` if it has a kink
+/// within ±h of `x` (`None` if it is smooth there).
+///
+/// ```
+/// use plumbline::scheme::one_sided_derivatives;
+/// let k = one_sided_derivatives(f64::abs, 0.0, 1e-3).unwrap();
+/// assert!((k.left + 1.0).abs() < 1e-9 && (k.right - 1.0).abs() < 1e-9);
+/// assert!(one_sided_derivatives(f64::tanh, 0.5, 1e-3).is_none());
+/// ```
+pub fn one_sided_derivatives(f: impl FnMut(f64) -> f64, x: f64, h: f64) -> Option<KinkProbe> {
+    kink_test(&mut ScalarLine::new(f, x), h)
+}
