@@ -152,6 +152,7 @@ impl Tolerance {
         }
         let floor = ROUNDING_ULPS
             * layer_eps
+            * estimate.amplification
             * (estimate.scale + estimate.value.abs() + estimate.forward_scale);
         self.margin * (estimate.error + floor)
     }

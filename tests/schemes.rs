@@ -44,8 +44,9 @@ fn ridders_on_the_published_test_function() {
         let r = rel(d.value, TEST_FN_DERIV);
         assert!(r < 1e-12, "h0 {h0}: rel {r}");
         assert!((d.value - TEST_FN_DERIV).abs() <= d.error, "h0 {h0}: {d:?}");
-        // 4 evaluations for the cross-check, at most 20 for the tableau.
-        assert!(d.evals <= 24, "{d:?}");
+        // 4 evaluations for the small-step check, at most 8 for finer
+        // checks, at most 20 for the extrapolation.
+        assert!(d.evals <= 32, "{d:?}");
     }
 }
 

@@ -13,7 +13,7 @@ use crate::layer::{Args, Forward, Gradients};
 use crate::report::{Report, Row, Worst};
 use crate::scalar::Real;
 use crate::scheme::engine::{guarded, Engine};
-use crate::scheme::{Estimate, KinkProbe, Scheme};
+use crate::scheme::{scatter_about_parabola, Estimate, KinkProbe, Scheme};
 use crate::signature::{Role, Signature, Slot};
 use crate::tensor::{MultiIndex, Tensor};
 
@@ -74,10 +74,6 @@ impl Audit {
             .iter()
             .map(|y| y.map(|_| L::Real::from_f64(rng.random_range(-1.0..1.0))))
             .collect();
-        let w: Vec<Vec<f64>> = upstream
-            .iter()
-            .map(|u| u.data().iter().map(|v| v.as_f64()).collect())
-            .collect();
         let g1 = call(&name, "backward", || layer.backward(args, &upstream))?;
         let g2 = call(&name, "backward (second call)", || {
             layer.backward(args, &upstream)
@@ -106,7 +102,17 @@ impl Audit {
         }
 
         let slot_names = slots.iter().map(|s| s.name.clone()).collect();
-        let mut engine = Engine::new(layer, &name, slot_names, args, &y0, w, generic);
+        let mut engine = Engine::new(
+            layer,
+            &name,
+            slot_names,
+            args,
+            &y0,
+            upstream.clone(),
+            generic,
+        );
+        engine.measure_precision()?;
+        engine.set_movable(differentiable.iter().map(|&(k, _)| k).collect());
         let mut rows = Vec::with_capacity(differentiable.len());
         let mut notes = Vec::new();
         let mut progress = Tally {
@@ -123,6 +129,7 @@ impl Audit {
             let mut tensor = TensorCase {
                 spec,
                 slot,
+                grad_index: d,
                 args_tensor: &args.all()[slot],
                 grad: grad.map(|g| g.map(|v| v.as_f64())),
                 indices: &plan[d],
@@ -228,8 +235,16 @@ impl Audit {
     }
 
     /// Cross-checks two seeded elements of a complex-step tensor (not at a
-    /// kink) against real differences in `f64`. Returns the first element where
-    /// they disagree beyond both error bars, with the two values.
+    /// kink) against real differences in `f64`. A forward that leaves the
+    /// Scalar path drops a term everywhere, so both elements must disagree,
+    /// each by more than 10⁻³ of its size, confirmed three ways: a cheap
+    /// small-step check, Ridders' method with its error bar, and a central
+    /// difference a few thousand ulps wide that sides with Ridders. A
+    /// forward that is flat at the ulp scale (a sum that rounds a tiny term
+    /// away, a saturated erf), a near tie or a staircase gives real
+    /// differences that disagree at some scales and for some elements only,
+    /// while the complex step rightly follows the computed forward.
+    /// Returns the first of the two mismatches.
     fn off_the_scalar_path<L: Forward + ?Sized>(
         &self,
         engine: &mut Engine<'_, L>,
@@ -237,39 +252,52 @@ impl Audit {
         indices: &[usize],
         estimates: &[Estimate],
     ) -> Result<Option<Mismatch>, Error> {
-        // Up to four seeded candidates, for two that are not at a kink (where
-        // the complex step gives a one-sided value and real differences the
-        // average, both rightly).
         let picks = sample(indices.len(), Some(4), self.seed ^ 0x5CA1_AB1E, slot);
+        let mut found: Vec<Mismatch> = Vec::new();
         let mut compared = 0;
         for k in picks {
             let (j, cs) = (indices[k], &estimates[k]);
             if !cs.value.is_finite() || compared == 2 {
                 continue;
             }
-            if engine.kink(slot, j)?.is_some() {
-                continue;
-            }
-            compared += 1;
             let Some((check, rounding)) = engine.quick_check(slot, j)? else {
                 continue;
             };
-            let size = cs.scale.max(check.abs());
-            if (cs.value - check).abs() <= 4.0 * cs.error + 100.0 * rounding + 1e-8 * size {
+            let size = cs.scale.max(check.abs()).max(cs.value.abs());
+            let agrees =
+                (cs.value - check).abs() <= 4.0 * cs.error + 100.0 * rounding + 1e-3 * size;
+            if !agrees && engine.kink(slot, j)?.is_some() {
                 continue;
             }
-            // The cheap check is not conclusive on its own: confirm with
-            // Ridders' method and its error bar.
-            let r = engine.real_estimate(slot, j, Scheme::Ridders)?;
-            if r.value.is_finite() && (cs.value - r.value).abs() > 4.0 * (r.error + cs.error) {
-                return Ok(Some(Mismatch {
-                    index: j,
-                    complex: cs.value,
-                    real: r.value,
-                }));
+            compared += 1;
+            if agrees {
+                return Ok(None);
             }
+            let r = engine.real_estimate(slot, j, Scheme::Ridders)?;
+            let decided = r.value.is_finite()
+                && r.conclusive
+                && (cs.value - r.value).abs() > 4.0 * (r.error + cs.error) + 1e-3 * size;
+            if !decided {
+                return Ok(None);
+            }
+            let x = engine.value(slot, j);
+            let near = engine.pair(slot, j, 1e4 * f64::EPSILON * x.abs().max(1.0))?;
+            let off = (near.derivative - cs.value).abs();
+            let sides_with_ridders = near.finite
+                && near.touched > 0.0
+                && off > 4.0 * (near.rounding(f64::EPSILON) + cs.error)
+                && (near.derivative - r.value).abs() < off;
+            if !sides_with_ridders {
+                return Ok(None);
+            }
+            found.push(Mismatch {
+                index: j,
+                complex: cs.value,
+                real: r.value,
+            });
         }
-        Ok(None)
+        let enough = if indices.len() >= 2 { 2 } else { 1 };
+        Ok((found.len() >= enough).then(|| found.remove(0)))
     }
 
     /// Compares, summarises and diagnoses one tensor.
@@ -291,6 +319,7 @@ impl Audit {
         let mut prober = SlotProber {
             engine,
             slot: t.slot,
+            grad_index: t.grad_index,
             scheme: t.scheme,
         };
         let Compared {
@@ -372,6 +401,8 @@ struct Mismatch {
 struct TensorCase<'a, R> {
     spec: &'a Slot,
     slot: usize,
+    /// Its position among the differentiable tensors (in `Gradients`).
+    grad_index: usize,
     args_tensor: &'a Tensor<R>,
     grad: Option<Tensor<f64>>,
     indices: &'a [usize],
@@ -403,6 +434,7 @@ impl Tally<'_> {
 struct SlotProber<'e, 'a, L: Forward + ?Sized> {
     engine: &'e mut Engine<'a, L>,
     slot: usize,
+    grad_index: usize,
     scheme: Scheme,
 }
 
@@ -419,10 +451,41 @@ impl<L: Forward + ?Sized> Prober for SlotProber<'_, '_, L> {
     }
 
     fn second_look(&mut self, j: usize, first: &Estimate) -> Result<Option<Estimate>, Error> {
-        match self.scheme {
-            Scheme::ComplexStep => self.engine.complex_second_look(self.slot, j, first),
-            _ => Ok(None),
+        self.engine.second_look(self.slot, j, first, self.scheme)
+    }
+
+    fn backward_scatter(&mut self, j: usize, at_point: f64) -> Result<f64, Error> {
+        let x = self.engine.value(self.slot, j);
+        let cbrt = f64::EPSILON.cbrt();
+        let step = 1e-6 * x.abs().max(cbrt);
+        let mut offsets = Vec::with_capacity(8);
+        let mut values = Vec::with_capacity(8);
+        for k in [-4.0, -3.0, -2.0, -1.0, 1.0, 2.0, 3.0, 4.0] {
+            if let Some(v) = self
+                .engine
+                .backward_moved(self.slot, self.grad_index, j, k * step)?
+            {
+                if v.is_finite() {
+                    offsets.push(k);
+                    values.push(v);
+                }
+            }
         }
+        let own = scatter_about_parabola(&offsets, &values, at_point);
+        let all = self.engine.backward_spread(self.grad_index, j, at_point)?;
+        Ok(own.max(all))
+    }
+
+    fn backward_beside(&mut self, j: usize) -> Result<Option<(f64, f64)>, Error> {
+        let x = self.engine.value(self.slot, j);
+        let h = 4.0 * f64::EPSILON.cbrt() * x.abs().max(f64::EPSILON.cbrt());
+        let left = self
+            .engine
+            .backward_moved(self.slot, self.grad_index, j, -h)?;
+        let right = self
+            .engine
+            .backward_moved(self.slot, self.grad_index, j, h)?;
+        Ok(left.zip(right))
     }
 }
 

@@ -67,6 +67,7 @@ mod gelu;
 mod gru;
 mod norm;
 mod pool;
+pub mod programs;
 mod residual;
 mod softmax;
 

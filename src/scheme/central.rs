@@ -1,6 +1,6 @@
 //! Central differences at two steps, with the error read off their spread.
 
-use super::{conclusive, finite_pair, Estimate, Line};
+use super::{conclusive, finite_pair, quantization, Estimate, Line};
 
 /// Central difference at h = ε^(1/3)·max(|x|, 1) (shrunk until φ is finite
 /// at both ends) and at 2h: value at h, error from the spread
@@ -26,7 +26,9 @@ pub(crate) fn estimate(line: &mut impl Line) -> Estimate {
     let (s_near, s_far) = (near.width / 2.0, far.width / 2.0);
     let spread = (far.derivative - near.derivative).abs();
     let truncation = spread * s_near * s_near / (s_far * s_far - s_near * s_near).abs();
-    let rounding = near.rounding(line.eps()) + far.rounding(line.eps());
+    // Outputs that did not move may still depend on x below an ulp.
+    let rounding =
+        near.rounding(line.eps()) + far.rounding(line.eps()) + quantization(&near, line.eps());
     Estimate {
         value: near.derivative,
         error: truncation + rounding,
@@ -35,5 +37,6 @@ pub(crate) fn estimate(line: &mut impl Line) -> Estimate {
         evals,
         step: s_near.max(s_far),
         conclusive: truncation <= rounding || conclusive(truncation, near.derivative, near.terms),
+        amplification: 1.0,
     }
 }

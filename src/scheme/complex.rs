@@ -47,25 +47,40 @@ pub(crate) struct Directional {
     /// Σ |wᵢ| · (smallest subnormal) / h over outputs whose imaginary part
     /// went subnormal: the granularity lost to underflow.
     pub underflow: f64,
+    /// The largest rounding amplification among the outputs with a
+    /// derivative (see `Engine::measure_precision`).
+    pub amplification: f64,
     /// Every part of every output finite, and the output shapes as expected.
     pub finite: bool,
 }
 
-/// Reads the derivative off complex outputs seeded with step `h`.
-pub(crate) fn read(y: &[Tensor<ComplexStep<f64>>], w: &[Vec<f64>], h: f64) -> Directional {
+/// Reads the derivative off complex outputs seeded with step `h`;
+/// `amplification` holds one factor per output, flattened (empty: all 1).
+pub(crate) fn read(
+    y: &[Tensor<ComplexStep<f64>>],
+    w: &[Vec<f64>],
+    h: f64,
+    amplification: &[f64],
+) -> Directional {
     let shapes_ok = y.len() == w.len() && y.iter().zip(w).all(|(t, w)| t.len() == w.len());
     let mut d = Directional {
         finite: shapes_ok,
+        amplification: 1.0,
         ..Directional::default()
     };
+    let mut k = 0;
     for (yt, wt) in y.iter().zip(w) {
         for (yi, &wi) in yt.data().iter().zip(wt) {
+            k += 1;
             if !(yi.re.is_finite() && yi.im.is_finite()) {
                 d.finite = false;
                 continue;
             }
             if yi.im == 0.0 {
                 continue;
+            }
+            if let Some(&a) = amplification.get(k - 1) {
+                d.amplification = d.amplification.max(a);
             }
             let term = wi * (yi.im / h);
             d.value += term;
@@ -92,6 +107,7 @@ pub(crate) fn evaluate(
     slot: usize,
     targets: &[(usize, f64)],
     h: f64,
+    amplification: &[f64],
 ) -> Directional {
     for &(j, v) in targets {
         work.all_mut()[slot].data_mut()[j].im = h * v;
@@ -101,7 +117,7 @@ pub(crate) fn evaluate(
         work.all_mut()[slot].data_mut()[j].im = 0.0;
     }
     match y {
-        Some(y) => read(&y, w, h),
+        Some(y) => read(&y, w, h, amplification),
         None => Directional {
             value: f64::NAN,
             ..Directional::default()

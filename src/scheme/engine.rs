@@ -12,7 +12,8 @@ use std::panic::{catch_unwind, AssertUnwindSafe};
 
 use super::complex::{self, Directional};
 use super::{
-    central, joint_probe, kink_test, ridders, Estimate, KinkProbe, Line, Pair, Sample, Scheme,
+    central, joint_probe, kink_test, look, ridders, scatter, Estimate, KinkProbe, Line, Look, Pair,
+    Sample, Scheme, LOOK_OFFSETS,
 };
 use crate::error::Error;
 use crate::format::num;
@@ -208,18 +209,26 @@ impl<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> Line for ArgLine<'_, U, F> {
         std::mem::swap(&mut self.work.diff, &mut self.work.kept);
         let m = self.eval(-h);
         let width = p.step - m.step;
-        let terms: f64 = self
+        let (mut terms, mut still) = (0.0_f64, 0.0_f64);
+        for (((a, b), w), y) in self
             .work
             .kept
             .iter()
             .zip(&self.work.diff)
             .zip(self.w)
-            .map(|((a, b), w)| (w * (a - b)).abs())
-            .sum();
+            .zip(&self.work.base)
+        {
+            if *a == 0.0 && *b == 0.0 {
+                still = still.max((w * y).abs());
+            } else {
+                terms += (w * (a - b)).abs();
+            }
+        }
         Pair {
             derivative: (p.delta - m.delta) / width,
             terms: terms / width,
             touched: p.touched.max(m.touched),
+            still,
             width,
             finite: p.finite && m.finite,
         }
@@ -231,7 +240,12 @@ impl<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> Line for ArgLine<'_, U, F> {
 enum Ask {
     Estimate(Scheme),
     Check,
+    Pair(f64),
+    Look,
     Kink(f64),
+    /// The kink test in the layer's own precision, where a forward that does
+    /// not move at all over the test's steps counts as a flat kink.
+    OwnKink(f64),
     Joint(f64),
 }
 
@@ -239,6 +253,8 @@ enum Ask {
 enum Answer {
     Estimate(Estimate),
     Check(Option<ridders::Check>),
+    Pair(Pair),
+    Look(Look),
     Probe(Option<KinkProbe>),
 }
 
@@ -256,12 +272,19 @@ fn ask<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
         Ask::Estimate(Scheme::Central) => Answer::Estimate(central::estimate(&mut line)),
         Ask::Estimate(_) => Answer::Estimate(ridders::estimate(&mut line)),
         Ask::Check => Answer::Check(ridders::small_step_check(&mut line)),
+        Ask::Pair(h) => Answer::Pair(line.pair(h)),
+        Ask::Look => Answer::Look(look(&mut line)),
         Ask::Kink(factor) => {
-            let h = factor * U::EPS.cbrt() * line.scale();
+            let h = kink_step(factor, &line);
             Answer::Probe(kink_test(&mut line, h))
         }
+        Ask::OwnKink(factor) => {
+            let h = kink_step(factor, &line);
+            let probe = kink_test(&mut line, h);
+            Answer::Probe(probe.or_else(|| flat_at_precision(&mut line, h)))
+        }
         Ask::Joint(factor) => {
-            let h = factor * U::EPS.cbrt() * line.scale();
+            let h = kink_step(factor, &line);
             Answer::Probe(joint_probe(&mut line, h))
         }
     };
@@ -272,11 +295,36 @@ fn ask<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
     }
 }
 
-/// Step of the kink test, as a multiple of ε^(1/3)·max(|x|, 1): small
-/// enough that a smooth φ's curvature cannot pass for a kink. (A kink
-/// further out that spoils a wide Ridders stencil shows up as a wide or
-/// inconsistent estimate instead.)
+/// An element along which the forward, in the layer's own precision, does
+/// not move at all over ±h: a max whose arguments tie at that precision
+/// though not in `f64`, a sum that rounds the element's term away. The
+/// layer cannot resolve a derivative there, so its backward's value is one
+/// convention among others: a flat kink, listed apart.
+fn flat_at_precision(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
+    let (p, m) = (line.at(h), line.at(-h));
+    let flat = p.finite && m.finite && p.delta == 0.0 && m.delta == 0.0 && p.touched == 0.0;
+    flat.then_some(KinkProbe {
+        left: 0.0,
+        right: 0.0,
+        noise: 0.0,
+        at_point: true,
+    })
+}
+
+/// Offsets of the backward's spread, in units of ε·max(|x|, 1).
+const SPREAD_OFFSETS: [f64; 6] = [-4096.0, -512.0, -64.0, 64.0, 512.0, 4096.0];
+
+/// Step of the kink test, as a multiple of ε^(1/3)·max(|x|, ε^(1/3)):
+/// small enough that a smooth φ's curvature cannot pass for a kink, and
+/// relative to x when x is small, so that a ReLU at 0 is not "at" an x of
+/// 10⁻⁷. (A kink further out that spoils a wide Ridders stencil shows up as
+/// a wide or inconsistent estimate instead.)
 const KINK_STEP: f64 = 4.0;
+
+fn kink_step(factor: f64, line: &impl Line) -> f64 {
+    let cbrt = line.eps().cbrt();
+    factor * cbrt * line.x().abs().max(cbrt)
+}
 
 /// Numerical references for one audit.
 pub(crate) struct Engine<'a, L: Forward + ?Sized> {
@@ -293,6 +341,18 @@ pub(crate) struct Engine<'a, L: Forward + ?Sized> {
     /// `f64` working copy of a generic forward (built on first use).
     real: Option<Working<f64>>,
     complex: Option<Args<ComplexStep<f64>>>,
+    /// The upstream gradients the audit's backward calls use.
+    upstream: Vec<Tensor<L::Real>>,
+    /// The differentiable tensors (positions in `Args`), in gradient order.
+    movable: Vec<usize>,
+    /// The backward's gradients with every differentiable tensor moved
+    /// along one direction, per offset of `SPREAD_OFFSETS` (built on first
+    /// use).
+    spread: Option<Vec<Option<Vec<Vec<f64>>>>>,
+    /// Per output (flattened): how many ulps of the layer's precision the
+    /// layer's own forward is off from the same forward in `f64`, divided
+    /// by a few (at least 1). Empty when not measured.
+    amplification: Vec<f64>,
     /// Forward evaluations spent.
     pub evals: usize,
 }
@@ -306,9 +366,13 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         slot_names: Vec<String>,
         args: &Args<L::Real>,
         outputs: &[Tensor<L::Real>],
-        w: Vec<Vec<f64>>,
+        upstream: Vec<Tensor<L::Real>>,
         use_generic: bool,
     ) -> Self {
+        let w: Vec<Vec<f64>> = upstream
+            .iter()
+            .map(|u| u.data().iter().map(|v| v.as_f64()).collect())
+            .collect();
         let generic = if use_generic { layer.reference() } else { None };
         Engine {
             layer,
@@ -320,8 +384,169 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             own: Working::new(args.clone(), outputs),
             real: None,
             complex: generic.map(|_| args.map(|v| ComplexStep::real(v.as_f64()))),
+            upstream,
+            movable: Vec::new(),
+            spread: None,
+            amplification: Vec::new(),
             evals: 0,
         }
+    }
+
+    /// Declares which tensors are differentiable (positions in `Args`, in
+    /// gradient order).
+    pub(crate) fn set_movable(&mut self, movable: Vec<usize>) {
+        self.movable = movable;
+    }
+
+    /// The scatter of the backward's value for element `j` of gradient
+    /// `grad` about a parabola, when every differentiable tensor moves
+    /// along one fixed direction by a few hundred to a few thousand ulps of
+    /// each element (at least of 1): the backward's own rounding at this
+    /// point, including what it inherits from intermediates that other
+    /// elements feed (a cancelling difference of squares upstream of a
+    /// weight gradient, a max whose arguments tie at the layer's
+    /// precision). Six backward calls per audit, made on first use.
+    pub(crate) fn backward_spread(
+        &mut self,
+        grad: usize,
+        j: usize,
+        at_point: f64,
+    ) -> Result<f64, Error> {
+        if self.spread.is_none() {
+            let mut samples = Vec::with_capacity(SPREAD_OFFSETS.len());
+            for k in SPREAD_OFFSETS {
+                samples.push(self.backward_along(k)?);
+            }
+            self.spread = Some(samples);
+        }
+        let mut offsets = Vec::with_capacity(SPREAD_OFFSETS.len());
+        let mut values = Vec::with_capacity(SPREAD_OFFSETS.len());
+        for (k, sample) in SPREAD_OFFSETS.iter().zip(self.spread.iter().flatten()) {
+            if let Some(v) = sample
+                .as_ref()
+                .and_then(|g| g.get(grad))
+                .and_then(|t| t.get(j))
+            {
+                if v.is_finite() {
+                    offsets.push(*k);
+                    values.push(*v);
+                }
+            }
+        }
+        Ok(super::scatter_about_parabola(&offsets, &values, at_point))
+    }
+
+    /// The backward's gradients (in `f64`) with every differentiable
+    /// element x moved by k·ε·max(|x|, 1) in a fixed ±1 pattern; `None`
+    /// entries for gradients the backward did not return.
+    fn backward_along(&mut self, k: f64) -> Result<Option<Vec<Vec<f64>>>, Error> {
+        let eps = L::Real::EPS;
+        let mut moved = self.own.args.clone();
+        for &slot in &self.movable {
+            for (j, v) in moved.all_mut()[slot].data_mut().iter_mut().enumerate() {
+                let sign = if (slot * 7919 + j * 104_729) % 3 == 1 {
+                    -1.0
+                } else {
+                    1.0
+                };
+                let x = v.as_f64();
+                *v = L::Real::from_f64(x + sign * k * eps * x.abs().max(1.0));
+            }
+        }
+        let layer = self.layer;
+        let up = &self.upstream;
+        match guarded(|| layer.backward(&moved, up)) {
+            Ok(g) => Ok(Some(
+                (0..self.movable.len())
+                    .map(|d| {
+                        g.get(d)
+                            .map(|t| t.data().iter().map(|v| v.as_f64()).collect())
+                            .unwrap_or_default()
+                    })
+                    .collect(),
+            )),
+            // A backward that panics at a moved point says nothing about
+            // its rounding here; the audit reports panics at the point.
+            Err(_) => Ok(None),
+        }
+    }
+
+    /// The backward's value for element `j` of tensor `slot` (gradient
+    /// entry `grad`) with that element moved by `t`: how the backward
+    /// itself behaves beside the point.
+    pub(crate) fn backward_moved(
+        &mut self,
+        slot: usize,
+        grad: usize,
+        j: usize,
+        t: f64,
+    ) -> Result<Option<f64>, Error> {
+        let data = self.own.args.all_mut()[slot].data_mut();
+        let x0 = data[j];
+        data[j] = L::Real::from_f64(x0.as_f64() + t);
+        let moved = data[j].as_f64();
+        let layer = self.layer;
+        let (args, up) = (&self.own.args, &self.upstream);
+        let outcome = guarded(|| layer.backward(args, up));
+        self.own.args.all_mut()[slot].data_mut()[j] = x0;
+        match outcome {
+            Ok(g) => Ok(g
+                .get(grad)
+                .and_then(|t| t.data().get(j))
+                .map(|v| v.as_f64())),
+            Err(message) => Err(Error::LayerPanicked {
+                layer: self.layer_name.to_string(),
+                call: "backward".to_string(),
+                at: format!(
+                    " while `{}` {} was moved to {}",
+                    self.slot_names[slot],
+                    self.own.args.all()[slot].index_of(j),
+                    num(moved)
+                ),
+                message,
+            }),
+        }
+    }
+
+    /// For an `f32` layer with a generic forward: how far its own outputs
+    /// are from the same forward in `f64`, in ulps of `f32`. A forward that
+    /// cancels (`ln(1 + r²)` for small r, `(r + a)² − a²`) is off by many
+    /// ulps at the point, and an `f32` backward that follows the same
+    /// formulas works from those values: the rounding floor of each element
+    /// is multiplied by the largest factor among the outputs it moves. One
+    /// `f64` forward per audit; nothing to do for an `f64` layer.
+    pub(crate) fn measure_precision(&mut self) -> Result<(), Error> {
+        let Some(generic) = self.generic else {
+            return Ok(());
+        };
+        if L::Real::EPS <= f64::EPSILON {
+            return Ok(());
+        }
+        self.ensure_real(generic)?;
+        let Some(real) = self.real.as_ref() else {
+            return Ok(());
+        };
+        let eps = L::Real::EPS;
+        self.amplification = self
+            .own
+            .base
+            .iter()
+            .zip(&real.base)
+            .map(|(own, exact)| {
+                let off = (own - exact).abs() / (4.0 * eps * exact.abs().max(f64::MIN_POSITIVE));
+                if off.is_finite() {
+                    off.max(1.0)
+                } else {
+                    1.0
+                }
+            })
+            .collect();
+        Ok(())
+    }
+
+    /// The value of element `j` of tensor `slot`, in `f64`.
+    pub(crate) fn value(&self, slot: usize, j: usize) -> f64 {
+        self.own.args.all()[slot].data()[j].as_f64()
     }
 
     /// `true` when references come from a generic forward.
@@ -434,11 +659,42 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         }
     }
 
-    /// The one-sided kink test at one element, in real arithmetic.
+    /// The one-sided kink test at one element, in real arithmetic. For an
+    /// `f32` layer with a generic forward the test runs in `f64` first and,
+    /// when that sees no kink, in the layer's own precision: two values that
+    /// differ in `f64` can tie in `f32`, and the layer's backward then routes
+    /// its gradient by the `f32` tie.
     pub(crate) fn kink(&mut self, slot: usize, j: usize) -> Result<Option<KinkProbe>, Error> {
-        match self.ask(slot, &[(j, 1.0)], Ask::Kink(KINK_STEP))? {
-            Answer::Probe(p) => Ok(p),
+        let probe = match self.ask(slot, &[(j, 1.0)], Ask::Kink(KINK_STEP))? {
+            Answer::Probe(p) => p,
             _ => unreachable!("a probe was asked for"),
+        };
+        if probe.is_some() || self.generic.is_none() || L::Real::EPS <= f64::EPSILON {
+            return Ok(probe);
+        }
+        let name = self.slot_names[slot].as_str();
+        let layer = self.layer;
+        let f = |a: &Args<L::Real>| layer.forward(a);
+        let mut evals = 0;
+        let answer = ask(
+            &mut self.own,
+            &f,
+            &self.w,
+            (slot, name),
+            &[(j, 1.0)],
+            Ask::OwnKink(KINK_STEP),
+            &mut evals,
+        );
+        self.evals += evals;
+        match answer {
+            Ok(Answer::Probe(p)) => Ok(p),
+            Ok(_) => unreachable!("a probe was asked for"),
+            Err(c) => Err(Error::LayerPanicked {
+                layer: self.layer_name.to_string(),
+                call: "forward".to_string(),
+                at: c.at,
+                message: c.message,
+            }),
         }
     }
 
@@ -475,7 +731,15 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
                 None
             }
         };
-        let d = complex::evaluate(work, &mut forward, &self.w_per_output, slot, targets, h);
+        let d = complex::evaluate(
+            work,
+            &mut forward,
+            &self.w_per_output,
+            slot,
+            targets,
+            h,
+            &self.amplification,
+        );
         self.evals += 1;
         match caught {
             None => Ok(d),
@@ -530,53 +794,118 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             evals,
             step: 0.0,
             conclusive: true,
+            amplification: d.amplification,
         })
     }
 
-    /// A second look at a complex-step estimate that disagrees: the same
-    /// derivative at the element moved by a few ulps either way. The
-    /// complex step is exact for the *computed* forward, but its imaginary
-    /// parts round along the forward's own formulas; where those cancel
-    /// (an erf series near |x| = 2.5, `1 + tanh(u)` at u ≈ −3) the
-    /// reference's error is far above 4ε·Σ|terms|, and a backward following
-    /// the same formulas loses as much. The rounding pattern changes from
-    /// one ulp to the next while the derivative does not, so the spread of
-    /// these values measures that error at this point. `None` when there
-    /// is no spread to add (or the element is 0).
-    pub(crate) fn complex_second_look(
+    /// A central difference over ±h at element `j`, in real arithmetic.
+    pub(crate) fn pair(&mut self, slot: usize, j: usize, h: f64) -> Result<Pair, Error> {
+        match self.ask(slot, &[(j, 1.0)], Ask::Pair(h))? {
+            Answer::Pair(p) => Ok(p),
+            _ => unreachable!("a pair was asked for"),
+        }
+    }
+
+    /// A second look at an element that disagrees and is not at a kink: the
+    /// error bar widened by what the forward does at this very point.
+    ///
+    /// * **The forward's own rounding.** Moves of one and two ulps of x
+    ///   scatter φ about a straight line by the forward's rounding there.
+    ///   Where it exceeds a few ulps of the outputs (a series that cancels,
+    ///   `1 + tanh(u)` near u = −3), a backward following the same formulas
+    ///   loses as much: the backward's floor is multiplied by that
+    ///   amplification, and a real-difference reference gets that noise
+    ///   over its smallest step added to its error.
+    /// * **How the derivative decays.** A backward that derives a local
+    ///   derivative from a forward value (`1 − t²` from t = tanh u) has an
+    ///   absolute error of ε·|t| in that factor, times how fast the
+    ///   pre-activation moves with x. At saturation that rate shows in the
+    ///   derivative itself, which decays like an exponential: |φ″/φ′| and
+    ///   |φ‴/φ″| agree. Their smaller one (capped at 1/step of the
+    ///   differences) replaces 1/max(|x|, 1) in the forward scale of the
+    ///   floor when it is larger.
+    /// * **The complex step's own limits.** Its imaginary parts round along
+    ///   the forward's formulas (an erf series near |x| = 2.5 cancels), and
+    ///   a derivative that is zero up to O(h²) terms reads as those terms:
+    ///   the same derivative at x moved by one and two ulps, and at twice
+    ///   the step, add their spread.
+    ///
+    /// `None` when the look adds nothing.
+    pub(crate) fn second_look(
         &mut self,
         slot: usize,
         j: usize,
         first: &Estimate,
+        scheme: Scheme,
     ) -> Result<Option<Estimate>, Error> {
         let x = self.own.args.all()[slot].data()[j].as_f64();
-        if x == 0.0 || !x.is_finite() {
+        if !x.is_finite() || !first.value.is_finite() {
             return Ok(None);
         }
-        let mut spread = 0.0_f64;
-        for k in [-2.0, -1.0, 1.0, 2.0] {
-            let moved = x * (1.0 + k * f64::EPSILON);
-            let h = complex::step_for(moved);
-            let Some(work) = self.complex.as_mut() else {
-                return Ok(None);
-            };
-            work.all_mut()[slot].data_mut()[j].re = moved;
-            let d = self.complex_along(slot, &[(j, 1.0)], h);
+        let look = match self.ask(slot, &[(j, 1.0)], Ask::Look)? {
+            Answer::Look(l) => l,
+            _ => unreachable!("a look was asked for"),
+        };
+        let eps = if self.is_generic() {
+            f64::EPSILON
+        } else {
+            L::Real::EPS
+        };
+        let mut e = *first;
+        e.evals += LOOK_OFFSETS.len() + 4;
+        if look.touched > 0.0 {
+            e.amplification = e.amplification.max(look.noise / (4.0 * eps * look.touched));
+        }
+        // The rate at which the derivative decays, |φ″/φ′|, where it
+        // decays like an exponential (|φ‴/φ″| agrees): a saturating
+        // nonlinearity behind a gain. A derivative merely crossing zero (x²
+        // at small x) has a large |φ″/φ′| but a small |φ‴/φ″|, and adds
+        // nothing.
+        let size = first.value.abs().max(look.curvature * look.bend_step);
+        if size > 0.0 && look.curvature > 0.0 {
+            let decay = (look.curvature / size).min(look.third / look.curvature);
+            let touched = first.forward_scale * x.abs().max(1.0);
+            e.forward_scale = e.forward_scale.max(touched * decay);
+        }
+        if scheme == Scheme::ComplexStep {
+            let h = complex::step_for(x);
+            let twice = self.complex_along(slot, &[(j, 1.0)], 2.0 * h)?;
+            e.evals += 1;
+            if twice.finite {
+                e.error += (twice.value - first.value).abs() / 3.0;
+            }
+            e.error += 2.0 * self.complex_jitter(slot, j, x, first.value)?;
+            e.evals += LOOK_OFFSETS.len();
+        } else if e.step > 0.0 {
+            // The smallest step of the estimate is about a sixteenth of its
+            // widest; the forward's scatter over it is that reference's
+            // rounding.
+            e.error += 4.0 * look.noise / (e.step / 16.0);
+        }
+        Ok(Some(e))
+    }
+
+    /// The scatter of the complex-step derivative when x moves by a few
+    /// ulps of max(|x|, 1) either way: its rounding along the forward's
+    /// formulas.
+    fn complex_jitter(&mut self, slot: usize, j: usize, x: f64, at_x: f64) -> Result<f64, Error> {
+        let mut offsets = Vec::with_capacity(LOOK_OFFSETS.len());
+        let mut values = Vec::with_capacity(LOOK_OFFSETS.len());
+        for k in LOOK_OFFSETS {
+            let moved = x + k * f64::EPSILON * x.abs().max(1.0);
+            if let Some(work) = self.complex.as_mut() {
+                work.all_mut()[slot].data_mut()[j].re = moved;
+            }
+            let d = self.complex_along(slot, &[(j, 1.0)], complex::step_for(moved));
             if let Some(work) = self.complex.as_mut() {
                 work.all_mut()[slot].data_mut()[j].re = x;
             }
             let d = d?;
             if d.finite {
-                spread = spread.max((d.value - first.value).abs());
+                offsets.push(k);
+                values.push(d.value);
             }
         }
-        if spread == 0.0 {
-            return Ok(None);
-        }
-        Ok(Some(Estimate {
-            error: first.error + 2.0 * spread,
-            evals: first.evals + 4,
-            ..*first
-        }))
+        Ok(scatter(&offsets, &values, at_x))
     }
 }

@@ -112,6 +112,11 @@ pub struct Estimate {
     /// element judged against it is reported as such. It is information,
     /// not a verdict: an element within its bound agrees.
     pub conclusive: bool,
+    /// How many times the forward's own rounding at this point exceeds a
+    /// few ulps of its outputs (1 unless a second look measured more): a
+    /// backward following the same formulas loses as much, so the
+    /// backward's rounding floor is multiplied by it.
+    pub amplification: f64,
 }
 
 impl Estimate {
@@ -126,6 +131,7 @@ impl Estimate {
             evals,
             step: 0.0,
             conclusive: false,
+            amplification: 1.0,
         }
     }
 }
@@ -163,6 +169,10 @@ pub(crate) struct Pair {
     pub terms: f64,
     /// Σ|wᵢyᵢ| over the outputs that moved, larger of the two ends.
     pub touched: f64,
+    /// The largest |wᵢyᵢ| among the outputs that did not move at either
+    /// end: a derivative of such an output below an ulp over the width
+    /// leaves no trace.
+    pub still: f64,
     /// The full width t₊ − t₋ actually used.
     pub width: f64,
     /// Both ends finite.
@@ -175,6 +185,14 @@ impl Pair {
     pub fn rounding(&self, eps: f64) -> f64 {
         4.0 * eps * self.touched / self.width
     }
+}
+
+/// The resolution of a difference quotient: an output that did not move
+/// over the width may still depend on x, by up to an ulp of it over the
+/// width (a term rounded away inside the forward). A few such outputs are
+/// allowed for.
+pub(crate) fn quantization(pair: &Pair, eps: f64) -> f64 {
+    4.0 * 2.0 * eps * pair.still / pair.width
 }
 
 /// The probe scalar along one coordinate.
@@ -191,6 +209,148 @@ pub(crate) trait Line {
     fn at(&mut self, t: f64) -> Sample;
     /// A central difference over ±h.
     fn pair(&mut self, h: f64) -> Pair;
+}
+
+/// What a second look at one element measured along its line.
+#[derive(Clone, Copy, Debug, Default)]
+pub(crate) struct Look {
+    /// The scatter of φ about a straight line over moves of a few ulps of
+    /// x: the forward's own rounding at this point.
+    pub noise: f64,
+    /// Σ|wᵢyᵢ| over the outputs those moves changed.
+    pub touched: f64,
+    /// |φ″| from a second difference over ±`bend_step`.
+    pub curvature: f64,
+    /// |φ‴| from a third difference over ±`bend_step`, ±2·`bend_step`.
+    pub third: f64,
+    /// The step of that second difference.
+    pub bend_step: f64,
+}
+
+/// Offsets of the second look, in ulps of max(|x|, 1): small enough that
+/// the derivative does not change, spread enough that the rounding pattern
+/// of intermediates larger than x changes too.
+pub(crate) const LOOK_OFFSETS: [f64; 8] = [-4096.0, -256.0, -16.0, -1.0, 1.0, 16.0, 256.0, 4096.0];
+
+/// The largest distance of `values` (with the point itself at offset 0,
+/// value `at_zero`) from the straight line that fits them best: the
+/// scatter of a quantity that should change linearly over these offsets.
+pub(crate) fn scatter(offsets: &[f64], values: &[f64], at_zero: f64) -> f64 {
+    let n = (values.len() + 1) as f64;
+    let (sx, sy) = offsets
+        .iter()
+        .zip(values)
+        .fold((0.0, at_zero), |(a, b), (x, y)| (a + x, b + y));
+    let (mx, my) = (sx / n, sy / n);
+    let (mut sxy, mut sxx) = ((0.0 - mx) * (at_zero - my), (0.0 - mx) * (0.0 - mx));
+    for (x, y) in offsets.iter().zip(values) {
+        sxy += (x - mx) * (y - my);
+        sxx += (x - mx) * (x - mx);
+    }
+    let slope = if sxx > 0.0 { sxy / sxx } else { 0.0 };
+    let line = |x: f64| my + slope * (x - mx);
+    offsets
+        .iter()
+        .zip(values)
+        .map(|(x, y)| (y - line(*x)).abs())
+        .fold((at_zero - line(0.0)).abs(), f64::max)
+}
+
+/// The largest distance of `values` (and `at_zero` at offset 0) from the
+/// parabola that fits them best: the scatter of a quantity that should
+/// change smoothly (to second order) over these offsets.
+pub(crate) fn scatter_about_parabola(offsets: &[f64], values: &[f64], at_zero: f64) -> f64 {
+    let xs: Vec<f64> = std::iter::once(0.0)
+        .chain(offsets.iter().copied())
+        .collect();
+    let ys: Vec<f64> = std::iter::once(at_zero)
+        .chain(values.iter().copied())
+        .collect();
+    if xs.len() < 4 {
+        return 0.0;
+    }
+    // Least squares for y = a + b x + c x² through the normal equations.
+    let n = xs.len() as f64;
+    let (mut s1, mut s2, mut s3, mut s4) = (0.0, 0.0, 0.0, 0.0);
+    let (mut t0, mut t1, mut t2) = (0.0, 0.0, 0.0);
+    let mean = ys.iter().sum::<f64>() / n;
+    for (&x, &y) in xs.iter().zip(&ys) {
+        let (x2, y) = (x * x, y - mean);
+        s1 += x;
+        s2 += x2;
+        s3 += x2 * x;
+        s4 += x2 * x2;
+        t0 += y;
+        t1 += x * y;
+        t2 += x2 * y;
+    }
+    let m = [[n, s1, s2], [s1, s2, s3], [s2, s3, s4]];
+    let Some([a, b, c]) = solve3(m, [t0, t1, t2]) else {
+        return 0.0;
+    };
+    xs.iter()
+        .zip(&ys)
+        .map(|(&x, &y)| (y - mean - (a + b * x + c * x * x)).abs())
+        .fold(0.0, f64::max)
+}
+
+/// Solves a 3×3 linear system by Cramer's rule.
+fn solve3(m: [[f64; 3]; 3], r: [f64; 3]) -> Option<[f64; 3]> {
+    let det = |m: [[f64; 3]; 3]| {
+        m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1])
+            - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
+            + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0])
+    };
+    let d = det(m);
+    if d == 0.0 || !d.is_finite() {
+        return None;
+    }
+    let mut out = [0.0; 3];
+    for (k, slot) in out.iter_mut().enumerate() {
+        let mut mk = m;
+        for (row, &v) in mk.iter_mut().zip(&r) {
+            row[k] = v;
+        }
+        *slot = det(mk) / d;
+    }
+    Some(out)
+}
+
+/// Measures the forward's rounding (moves of a few ulps of max(|x|, 1))
+/// and how the derivative bends (±10⁻⁴·max(|x|, 1)) at the point.
+pub(crate) fn look(line: &mut impl Line) -> Look {
+    let mut touched = 0.0_f64;
+    let noise = {
+        let ulp = line.eps() * line.scale();
+        let mut offsets = Vec::with_capacity(LOOK_OFFSETS.len());
+        let mut values = Vec::with_capacity(LOOK_OFFSETS.len());
+        for k in LOOK_OFFSETS {
+            let s = line.at(k * ulp);
+            if s.finite && s.step != 0.0 {
+                offsets.push(s.step / ulp);
+                values.push(s.delta);
+                touched = touched.max(s.touched);
+            }
+        }
+        scatter(&offsets, &values, 0.0)
+    };
+    let bend_step = 1e-4 * line.scale();
+    let (p, m) = (line.at(bend_step), line.at(-bend_step));
+    let (p2, m2) = (line.at(2.0 * bend_step), line.at(-2.0 * bend_step));
+    let (mut curvature, mut third) = (0.0, 0.0);
+    if p.finite && m.finite && p2.finite && m2.finite {
+        let s = 0.5 * (p.step - m.step);
+        curvature = ((p.delta + m.delta) / (s * s)).abs();
+        third = ((p2.delta - 2.0 * p.delta + 2.0 * m.delta - m2.delta) / (2.0 * s * s * s)).abs();
+    }
+    let finite_or_zero = |v: f64| if v.is_finite() { v } else { 0.0 };
+    Look {
+        noise,
+        touched,
+        curvature: finite_or_zero(curvature),
+        third: finite_or_zero(third),
+        bend_step,
+    }
 }
 
 /// The largest step ≤ `h` (shrunk by 4 each try, at most 40 times) at
@@ -255,6 +415,11 @@ impl<F: FnMut(f64) -> f64> Line for ScalarLine<F> {
             derivative,
             terms: derivative.abs(),
             touched: p.touched.max(m.touched),
+            still: if p.delta == 0.0 && m.delta == 0.0 {
+                self.at_x.abs()
+            } else {
+                0.0
+            },
             width,
             finite: p.finite && m.finite,
         }

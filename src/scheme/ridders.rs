@@ -18,7 +18,7 @@
 //! The code here is written from that description; its structure and names
 //! are the project's own.
 
-use super::{conclusive, finite_pair, Estimate, Line};
+use super::{conclusive, finite_pair, quantization, Estimate, Line};
 
 /// Each step is the previous one divided by `shrink`.
 const SHRINK: f64 = 1.4;
@@ -106,8 +106,11 @@ fn extrapolate(line: &mut impl Line, first_step: f64) -> Estimate {
         }
     }
     // Entries can agree by chance (a linear φ): never claim less than the
-    // rounding of the smallest step used, nor than 100ε of the terms.
-    let floor = (4.0 * best.rounding).max(100.0 * eps * (best.value.abs() + first.terms));
+    // rounding of the smallest step used, nor than 100ε of the terms, nor
+    // than what outputs that did not move even at the widest step may hide.
+    let floor = (4.0 * best.rounding)
+        .max(100.0 * eps * (best.value.abs() + first.terms))
+        .max(quantization(&first, eps));
     let truncation = TRUST * best.error;
     Estimate {
         value: best.value,
@@ -116,13 +119,15 @@ fn extrapolate(line: &mut impl Line, first_step: f64) -> Estimate {
         forward_scale: first.touched / line.scale(),
         evals,
         step: best.step,
-        conclusive: truncation <= floor || conclusive(truncation, best.value, first.terms),
+        amplification: 1.0,
+        conclusive: first.touched > 0.0
+            && (truncation <= floor || conclusive(truncation, best.value, first.terms)),
     }
 }
 
 /// One Richardson elimination over central differences at the small steps
-/// s = 2ε^(1/3)·max(|x|, 1) (shrunk until φ is finite) and s/2: error
-/// O(s⁴) plus rounding. Independent of the extrapolation's first steps.
+/// s and s/2 (s shrunk until φ is finite): error O(s⁴) plus rounding.
+/// Independent of the extrapolation's first steps.
 pub(crate) struct Check {
     pub value: f64,
     pub rounding: f64,
@@ -130,8 +135,7 @@ pub(crate) struct Check {
     pub evals: usize,
 }
 
-pub(crate) fn small_step_check(line: &mut impl Line) -> Option<Check> {
-    let step = 2.0 * line.eps().cbrt() * line.scale();
+pub(crate) fn check_at(line: &mut impl Line, step: f64) -> Option<Check> {
     let (step, wide, evals) = finite_pair(line, step)?;
     let narrow = line.pair(step / 2.0);
     if !narrow.finite {
@@ -145,6 +149,12 @@ pub(crate) fn small_step_check(line: &mut impl Line) -> Option<Check> {
     })
 }
 
+/// The check at s = 2ε^(1/3)·max(|x|, 1).
+pub(crate) fn small_step_check(line: &mut impl Line) -> Option<Check> {
+    let step = 2.0 * line.eps().cbrt() * line.scale();
+    check_at(line, step)
+}
+
 /// Ridders' method from a first step of 0.1·max(|x|, 1).
 pub(crate) fn estimate(line: &mut impl Line) -> Estimate {
     let first = 0.1 * line.scale();
@@ -156,31 +166,41 @@ pub(crate) fn estimate(line: &mut impl Line) -> Estimate {
 /// 2ε^(1/3)·max(|x|, 1) and half that (error O(s⁴)).
 ///
 /// Where the extrapolation stays wide, or lands outside its own error bar
-/// around the check (φ oscillates faster than the first steps, and the
-/// extrapolation converged to the wrong value), it starts again from a
-/// first step 8× smaller, down to 8× the check's step, and keeps the first
-/// decided estimate. The final error bar is never below the distance to
-/// the check: two independent estimates that differ by d leave an
-/// uncertainty of at least d.
+/// around a check (φ changes on a scale finer than the first steps, and
+/// the extrapolation converged to the wrong value), it starts again from a
+/// first step 8× smaller, down to 8× the smallest check's step, and keeps
+/// the first decided estimate. The final error bar is never below the
+/// distance to the check at 2ε^(1/3)·max(|x|, 1): two independent
+/// estimates that differ by d leave an uncertainty of at least d.
 pub(crate) fn estimate_from(line: &mut impl Line, first_step: f64) -> Estimate {
-    let Some(Check {
-        value: check,
-        rounding: check_rounding,
-        step: check_step,
-        mut evals,
-    }) = small_step_check(line)
-    else {
+    let Some(check) = small_step_check(line) else {
         return Estimate::not_finite(80);
     };
+    let mut evals = check.evals;
+    let checks = finer_checks(line, check, &mut evals);
+    // The first check's rounding is well modelled; a finer one's less so
+    // (intermediates that cancel inside the forward add to it), so it is
+    // given ten times the room.
+    let room = |k: usize| if k == 0 { 10.0 } else { 100.0 };
     let fits = |e: &Estimate| {
-        (e.value - check).abs() <= e.error + 10.0 * check_rounding + 1e-9 * check.abs()
+        checks.iter().enumerate().all(|(k, c)| {
+            (e.value - c.value).abs() <= e.error + room(k) * c.rounding + 1e-9 * c.value.abs()
+        })
     };
+    let lowest = checks.iter().map(|c| c.step).fold(f64::INFINITY, f64::min);
     let mut first = first_step;
     let mut best = extrapolate(line, first);
     best.conclusive &= fits(&best);
     evals += best.evals;
-    while !best.conclusive && first / 8.0 >= 8.0 * check_step {
-        first /= 8.0;
+    // Restarts: 8× smaller first steps down to 64× the first check's step,
+    // then 64× smaller down to 8× the finest check's.
+    while !best.conclusive && first / 8.0 >= 8.0 * lowest {
+        let shrink = if first / 8.0 >= 64.0 * checks[0].step {
+            8.0
+        } else {
+            64.0
+        };
+        first = (first / shrink).max(8.0 * lowest);
         let mut next = extrapolate(line, first);
         next.conclusive &= fits(&next);
         evals += next.evals;
@@ -189,10 +209,41 @@ pub(crate) fn estimate_from(line: &mut impl Line, first_step: f64) -> Estimate {
         }
     }
     if best.value.is_finite() {
-        best.error = best.error.max((best.value - check).abs());
+        // Two independent estimates that differ by d leave an uncertainty
+        // of at least d.
+        best.error = best.error.max((best.value - checks[0].value).abs());
+        for c in &checks[1..] {
+            best.error = best
+                .error
+                .max((best.value - c.value).abs() - room(1) * c.rounding);
+        }
     }
     best.evals = evals;
     best
+}
+
+/// The first check, then checks at steps 64 and 64² times smaller while
+/// their rounding stays below 10⁻⁴ of the derivative: a function that moves
+/// on a scale finer than the first check (a max whose arguments nearly tie
+/// switches a few 10⁻⁷ away, values of 10⁻⁶ multiplied together) looks
+/// flat or straight from further out, and only a finer step sees it.
+fn finer_checks(line: &mut impl Line, first: Check, evals: &mut usize) -> Vec<Check> {
+    let size = first.value.abs();
+    let mut step = first.step;
+    let mut out = vec![first];
+    for _ in 0..2 {
+        step /= 64.0;
+        let Some(c) = check_at(line, step) else {
+            break;
+        };
+        *evals += c.evals;
+        let informative = c.rounding <= 1e-4 * size.max(c.value.abs());
+        if !informative {
+            break;
+        }
+        out.push(c);
+    }
+    out
 }
 
 #[cfg(test)]
