@@ -441,9 +441,17 @@ struct SlotProber<'e, 'a, L: Forward + ?Sized> {
 impl<L: Forward + ?Sized> Prober for SlotProber<'_, '_, L> {
     fn kink(&mut self, j: usize) -> Result<Option<KinkProbe>, Error> {
         let probe = self.engine.kink(self.slot, j)?;
-        // For the complex step only a kink at the point itself matters: one
-        // that is merely near is outside its (imaginary) stencil.
-        Ok(probe.filter(|p| self.scheme != Scheme::ComplexStep || p.at_point))
+        if self.scheme == Scheme::ComplexStep {
+            // Only a kink at the point itself matters to the complex step:
+            // one that is merely near is outside its (imaginary) stencil.
+            return Ok(probe.filter(|p| p.at_point));
+        }
+        // Real differences also straddle kinks further out, up to the scale
+        // of their steps.
+        match probe {
+            Some(p) => Ok(Some(p)),
+            None => self.engine.kink_in_stencil(self.slot, j),
+        }
     }
 
     fn joint(&mut self, group: &[usize]) -> Result<Option<KinkProbe>, Error> {

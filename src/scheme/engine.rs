@@ -246,6 +246,8 @@ enum Ask {
     /// The kink test in the layer's own precision, where a forward that does
     /// not move at all over the test's steps counts as a flat kink.
     OwnKink(f64),
+    /// The kink test at the scale of a real-difference stencil.
+    StencilKink(f64),
     Joint(f64),
 }
 
@@ -282,6 +284,10 @@ fn ask<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
             let h = kink_step(factor, &line);
             let probe = kink_test(&mut line, h);
             Answer::Probe(probe.or_else(|| flat_at_precision(&mut line, h)))
+        }
+        Ask::StencilKink(factor) => {
+            let h = factor * U::EPS.cbrt() * line.scale();
+            Answer::Probe(kink_test(&mut line, h))
         }
         Ask::Joint(factor) => {
             let h = kink_step(factor, &line);
@@ -698,6 +704,21 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         }
     }
 
+    /// The kink test at the scale of a real-difference stencil,
+    /// 4ε^(1/3)·max(|x|, 1): a kink further from x than the point test
+    /// sees (a ReLU at 0 beside an x of 10⁻⁶) but inside the steps that
+    /// real differences take. Any kink found is reported as not at the
+    /// point.
+    pub(crate) fn kink_in_stencil(&mut self, slot: usize, j: usize) -> Result<Option<KinkProbe>, Error> {
+        match self.ask(slot, &[(j, 1.0)], Ask::StencilKink(KINK_STEP))? {
+            Answer::Probe(p) => Ok(p.map(|p| KinkProbe {
+                at_point: false,
+                ..p
+            })),
+            _ => unreachable!("a probe was asked for"),
+        }
+    }
+
     /// One-sided derivatives for a joint move of several elements.
     pub(crate) fn joint(
         &mut self,
@@ -879,7 +900,6 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         } else if e.step > 0.0 {
             // The smallest step of the estimate is about a sixteenth of its
             // widest; the forward's scatter over it is that reference's
-            // rounding.
             e.error += 4.0 * look.noise / (e.step / 16.0);
         }
         Ok(Some(e))

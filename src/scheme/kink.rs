@@ -36,14 +36,22 @@ const NOISE_MULTIPLE: f64 = 10.0;
 ///
 /// A function that bends on a scale below the step (a kink followed by a
 /// steep saturation) looks rough rather than kinked at h: the test then
-/// tries again at h/64 and h/4096 before calling it smooth.
+/// tries again at h/64 and h/4096 before calling it smooth. A jump that is
+/// below the rounding at h (small steps in `f32`) is looked for again at
+/// 8h and 64h.
 pub(crate) fn kink_test(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
     let mut step = h;
-    for _ in 0..3 {
+    let mut widened = 0;
+    for _ in 0..5 {
         match kink_at_step(line, step) {
             Shape::Smooth => return hidden_kink(line, step),
             Shape::Kink(p) => return Some(p),
             Shape::Rough => step /= 64.0,
+            Shape::Quiet if widened < 2 && step >= h => {
+                widened += 1;
+                step *= 8.0;
+            }
+            Shape::Quiet => return None,
         }
     }
     None
@@ -86,6 +94,8 @@ fn hidden_kink(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
 /// What one step of the kink test saw.
 enum Shape {
     Smooth,
+    /// Both gaps below their rounding: no kink larger than the rounding.
+    Quiet,
     Kink(KinkProbe),
     /// Neither: the one-sided slopes change with the step.
     Rough,
@@ -98,7 +108,7 @@ fn kink_at_step(line: &mut impl Line, h: f64) -> Shape {
     if s.gap_wide.abs() <= NOISE_MULTIPLE * s.noise_wide
         && s.gap_narrow.abs() <= NOISE_MULTIPLE * s.noise_narrow
     {
-        return Shape::Smooth;
+        return Shape::Quiet;
     }
     let ratio = s.gap_narrow / s.gap_wide;
     if (ratio - 0.25).abs() <= 0.15 {

@@ -223,7 +223,7 @@ pub(crate) fn estimate_from(line: &mut impl Line, first_step: f64) -> Estimate {
 }
 
 /// The first check, then checks at steps 64 and 64² times smaller while
-/// their rounding stays below 10⁻⁴ of the derivative: a function that moves
+/// their rounding stays below 10⁻³ of the derivative: a function that moves
 /// on a scale finer than the first check (a max whose arguments nearly tie
 /// switches a few 10⁻⁷ away, values of 10⁻⁶ multiplied together) looks
 /// flat or straight from further out, and only a finer step sees it.
@@ -237,7 +237,7 @@ fn finer_checks(line: &mut impl Line, first: Check, evals: &mut usize) -> Vec<Ch
             break;
         };
         *evals += c.evals;
-        let informative = c.rounding <= 1e-4 * size.max(c.value.abs());
+        let informative = c.rounding <= 1e-3 * size.max(c.value.abs());
         if !informative {
             break;
         }
