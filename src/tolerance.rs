@@ -5,7 +5,7 @@
 //!
 //! ```text
 //! bound = margin × ( reference error
-//!                    + ROUNDING_ULPS · ε_layer · (Σ|terms| + |numeric| + forward scale) )
+//!                    + ROUNDING_ULPS · ε_layer · A · (Σ|terms| + max(|a|, |n|) + forward scale) )
 //! ```
 //!
 //! * *reference error*: the scheme's own estimate ([`Estimate::error`]):
@@ -21,6 +21,9 @@
 //!   element moves covers rounding in quantities the backward derives from
 //!   forward values (`1 − tanh²` at saturation has absolute error ~ε,
 //!   however small the derivative);
+//! * `A`, the forward's rounding amplification at the point (1 unless
+//!   measured there: an `f32` forward compared with the same forward in
+//!   `f64`, or a second look at an element that disagrees);
 //! * `margin` (default [`DEFAULT_MARGIN`]) is the one knob.
 //!
 //! Users may instead set fixed bounds, `max_absolute` and `max_relative`;
@@ -150,10 +153,11 @@ impl Tolerance {
             let rel = self.max_relative.unwrap_or(0.0) * analytic.abs().max(estimate.value.abs());
             return abs.max(rel);
         }
+        let size = estimate.value.abs().max(analytic.abs());
         let floor = ROUNDING_ULPS
             * layer_eps
             * estimate.amplification
-            * (estimate.scale + estimate.value.abs() + estimate.forward_scale);
+            * (estimate.scale + size + estimate.forward_scale);
         self.margin * (estimate.error + floor)
     }
 
