@@ -1,40 +1,71 @@
-//! Quality of the audit on the gallery, beside a hand-rolled baseline.
-//!
-//! For every planted bug: detected or not, and with which diagnosis. For
-//! every correct layer: false alarms over N random cases (N = 1,000 by
-//! default) in `f64` (generic layers) and in `f32` (all layers), and the
-//! forward and backward evaluations spent per audit.
-//!
-//! The baseline is the check as it is commonly hand-rolled: central
-//! differences with a fixed step of 1e-6 on the layer's own forward, in its
-//! own precision, against the fixed tolerances `|a − n| <= 1e-5 + 1e-3·|n|`
-//! per element, with one random upstream gradient and one backward call.
+//! Quality of the audit: planted bugs found, right diagnoses, and false
+//! alarms, on the gallery (the layers the checker was tuned on) and on
+//! random programs it never saw (`gallery::programs`), in four modes:
+//! `f64`/`f32` layers, each audited through a generic forward (complex-step
+//! references) and through its plain path (real differences in the layer's
+//! own precision). Beside plumbline, a fixed-step comparison: central
+//! differences at one fixed step with fixed tolerances, swept over eight
+//! configurations, and the best of them reported.
 //!
 //! Run: `cargo bench --bench quality` (full), `cargo bench --bench quality
-//! -- --quick` or `PLUMBLINE_QUALITY_QUICK=1` (50 cases per layer, for a
-//! smoke run). `PLUMBLINE_QUALITY_CASES=n` sets N. Prints a table and
-//! writes `target/bench-quality.json` (under `CARGO_TARGET_DIR` if set).
+//! -- --quick` or `PLUMBLINE_QUALITY_QUICK=1` (a smoke run).
+//! `PLUMBLINE_QUALITY_CASES=n` sets the correct gallery cases per layer and
+//! precision (default 1,000), `PLUMBLINE_QUALITY_PROGRAMS=n` the random
+//! programs per mode (default 10,000). Prints tables and writes
+//! `target/bench-quality.json` (under `CARGO_TARGET_DIR` if set).
 
 use std::path::PathBuf;
 
+use plumbline::gallery::programs::Program;
 use plumbline::gallery::{judge, registry, Subject};
 use plumbline::report::Role;
-use plumbline::{Args, Audit, Forward, Real, Tensor};
+use plumbline::{Args, Audit, Forward, Real, Report, Tensor};
 use rand::{RngExt, SeedableRng};
+use serde_json::{json, Value};
 
-/// The baseline's step and tolerances.
-const STEP: f64 = 1e-6;
-const ABS_TOL: f64 = 1e-5;
-const REL_TOL: f64 = 1e-3;
+/// The planted rule errors' relative sizes.
+const SIZES: [(f64, &str); 4] = [
+    (1e-2, "1e-2"),
+    (1e-4, "1e-4"),
+    (1e-6, "1e-6"),
+    (1e-8, "1e-8"),
+];
 
-/// What one run of a checker said.
+/// Programs that also get planted bugs: one in this many.
+const PLANT_EVERY: u64 = 10;
+
+// ------------------------------------------------------------ fixed step
+
+/// One configuration of the fixed-step comparison.
+#[derive(Clone, Copy)]
+struct FixedStep {
+    /// The step, or `None` for √ε·max(|x|, 1) in the layer's precision.
+    step: Option<f64>,
+}
+
+impl FixedStep {
+    fn label(self) -> String {
+        match self.step {
+            Some(h) => format!("{h:e}"),
+            None => "sqrt(eps)*max(|x|,1)".to_string(),
+        }
+    }
+
+    /// The tolerance rule, stated once for every configuration: ten times
+    /// the textbook error of a central difference at step h in precision
+    /// ε, i.e. 10·(ε/h + h²), both as the absolute and as the relative
+    /// allowance: |a − n| ≤ tol + tol·|n|.
+    fn tolerance(h: f64, eps: f64) -> f64 {
+        10.0 * (eps / h + h * h)
+    }
+}
+
+/// What one checker said about one audit.
 struct Run {
     passed: bool,
     forward: usize,
-    backward: usize,
 }
 
-/// φ = Σ wᵢ·yᵢ in the layer's own precision, as a hand-rolled check would.
 fn projected<R: Real>(ys: &[Tensor<R>], w: &[Vec<R>]) -> R {
     let mut s = R::zero();
     for (y, wt) in ys.iter().zip(w) {
@@ -45,8 +76,14 @@ fn projected<R: Real>(ys: &[Tensor<R>], w: &[Vec<R>]) -> R {
     s
 }
 
-/// Fixed-step central differences with fixed tolerances.
-fn baseline<R: Real>(layer: &dyn Forward<Real = R>, args: &Args<R>, seed: u64) -> Run {
+/// Fixed-step central differences in the layer's own precision against
+/// fixed tolerances, with one random upstream gradient and one backward.
+fn fixed_step<R: Real>(
+    cfg: FixedStep,
+    layer: &dyn Forward<Real = R>,
+    args: &Args<R>,
+    seed: u64,
+) -> Run {
     let mut rng = rand::rngs::StdRng::seed_from_u64(seed);
     let y0 = layer.forward(args);
     let w: Vec<Vec<R>> = y0
@@ -69,37 +106,40 @@ fn baseline<R: Real>(layer: &dyn Forward<Real = R>, args: &Args<R>, seed: u64) -
     let mut run = Run {
         passed: true,
         forward: 1,
-        backward: 1,
     };
-    let sig = layer.signature();
     let mut work = args.clone();
-    let h = R::from_f64(STEP);
-    let two_h = R::from_f64(2.0 * STEP);
     let mut k = 0;
-    for (slot_index, (_, role)) in sig.arguments().enumerate() {
+    for (slot, (_, role)) in layer.signature().arguments().enumerate() {
         if role == Role::Fixed {
             continue;
         }
         let grad = grads.get(k);
         k += 1;
-        let shape = args.all()[slot_index].shape().to_vec();
+        let shape = args.all()[slot].shape().to_vec();
         let Some(grad) = grad.filter(|g| g.shape() == shape.as_slice()) else {
             run.passed = false;
             continue;
         };
         for j in 0..grad.len() {
-            let x0 = work.all()[slot_index].data()[j];
-            work.all_mut()[slot_index].data_mut()[j] = x0 + h;
-            let plus = projected(&layer.forward(&work), &w);
-            work.all_mut()[slot_index].data_mut()[j] = x0 - h;
-            let minus = projected(&layer.forward(&work), &w);
-            work.all_mut()[slot_index].data_mut()[j] = x0;
+            let x0 = work.all()[slot].data()[j];
+            let h = cfg
+                .step
+                .unwrap_or(R::EPS.sqrt() * x0.as_f64().abs().max(1.0));
+            // The step actually applied, after rounding.
+            let plus = R::from_f64(x0.as_f64() + h);
+            let minus = R::from_f64(x0.as_f64() - h);
+            work.all_mut()[slot].data_mut()[j] = plus;
+            let fp = projected(&layer.forward(&work), &w);
+            work.all_mut()[slot].data_mut()[j] = minus;
+            let fm = projected(&layer.forward(&work), &w);
+            work.all_mut()[slot].data_mut()[j] = x0;
             run.forward += 2;
-            let n = ((plus - minus) / two_h).as_f64();
+            let width = plus.as_f64() - minus.as_f64();
+            let n = (fp - fm).as_f64() / width;
             let a = grad.data()[j].as_f64();
+            let tol = FixedStep::tolerance(h, R::EPS);
             // NaN never passes.
-            let agrees = (a - n).abs() <= ABS_TOL + REL_TOL * n.abs();
-            if !agrees {
+            if !((a - n).abs() <= tol + tol * n.abs()) {
                 run.passed = false;
             }
         }
@@ -107,60 +147,146 @@ fn baseline<R: Real>(layer: &dyn Forward<Real = R>, args: &Args<R>, seed: u64) -
     run
 }
 
-fn run_baseline(subject: &Subject, seed: u64) -> Run {
+fn run_fixed(cfg: FixedStep, subject: &Subject, seed: u64) -> Run {
     match subject {
-        Subject::F64(l, a) => baseline(l.as_ref(), a, seed),
-        Subject::F32(l, a) => baseline(l.as_ref(), a, seed),
+        Subject::F64(l, a) => fixed_step(cfg, l.as_ref(), a, seed),
+        Subject::F32(l, a) => fixed_step(cfg, l.as_ref(), a, seed),
     }
 }
 
-fn run_plumbline(subject: &Subject, seed: u64) -> Run {
-    match subject.audit(&Audit::new().seed(seed)) {
-        Ok(r) => Run {
-            passed: r.passed(),
-            forward: r.forward_evals,
-            backward: r.backward_evals,
-        },
-        Err(e) => panic!("gallery arguments must fit: {e}"),
-    }
-}
+// ------------------------------------------------------------- tallies
 
-#[derive(Default)]
+#[derive(Default, Clone)]
 struct Totals {
     planted: usize,
     detected: usize,
     right_diagnosis: usize,
+    specific: usize,
     cases_f64: usize,
     alarms_f64: usize,
     cases_f32: usize,
     alarms_f32: usize,
     forward: usize,
-    backward: usize,
     audits: usize,
 }
 
 impl Totals {
-    fn json(&self) -> serde_json::Value {
-        serde_json::json!({
+    fn json(&self) -> Value {
+        json!({
             "planted": self.planted,
             "detected": self.detected,
             "right_diagnosis": self.right_diagnosis,
+            "right_diagnosis_specific": self.specific,
             "correct_cases_f64": self.cases_f64,
             "false_alarms_f64": self.alarms_f64,
             "correct_cases_f32": self.cases_f32,
             "false_alarms_f32": self.alarms_f32,
-            "forward_evals_per_audit": self.forward_per_audit(),
+            "forward_evals_per_audit": round1(self.forward as f64 / self.audits.max(1) as f64),
         })
     }
 
-    fn forward_per_audit(&self) -> f64 {
-        let v = self.forward as f64 / self.audits.max(1) as f64;
-        (v * 10.0).round() / 10.0
+    fn count_correct(&mut self, precision: &str, passed: bool, forward: usize) {
+        if precision == "f64" {
+            self.cases_f64 += 1;
+            self.alarms_f64 += usize::from(!passed);
+        } else {
+            self.cases_f32 += 1;
+            self.alarms_f32 += usize::from(!passed);
+        }
+        self.forward += forward;
+        self.audits += 1;
+    }
+}
+
+fn round1(v: f64) -> f64 {
+    (v * 10.0).round() / 10.0
+}
+
+/// One of the four modes.
+#[derive(Default)]
+struct Mode {
+    correct: usize,
+    alarms: usize,
+    planted: [usize; 4],
+    detected: [usize; 4],
+    /// Planted errors left out because the layer's own forward is less
+    /// precise than δ/10 at that point.
+    unresolvable: [usize; 4],
+    forward: usize,
+    audits: usize,
+    examples: Vec<String>,
+}
+
+impl Mode {
+    fn record_correct(&mut self, report: &Report, label: impl FnOnce() -> String) {
+        self.correct += 1;
+        self.forward += report.forward_evals;
+        self.audits += 1;
+        if !report.passed() {
+            self.alarms += 1;
+            if self.examples.len() < 5 {
+                self.examples.push(label());
+            }
+        }
     }
 
-    fn backward_per_audit(&self) -> f64 {
-        let v = self.backward as f64 / self.audits.max(1) as f64;
-        (v * 10.0).round() / 10.0
+    fn json(&self) -> Value {
+        let by_size: serde_json::Map<String, Value> = SIZES
+            .iter()
+            .enumerate()
+            .map(|(k, (_, name))| {
+                let rate = self.detected[k] as f64 / self.planted[k].max(1) as f64;
+                (name.to_string(), json!((rate * 1e4).round() / 1e4))
+            })
+            .collect();
+        json!({
+            "correct_cases": self.correct,
+            "false_alarms": self.alarms,
+            "planted": self.planted.iter().sum::<usize>(),
+            "detected": self.detected.iter().sum::<usize>(),
+            "detected_by_size": by_size,
+            "planted_by_size": SIZES.iter().zip(self.planted).map(|((_, n), p)| (n.to_string(), json!(p))).collect::<serde_json::Map<_, _>>(),
+            "left_out_below_layer_precision": SIZES.iter().zip(self.unresolvable).map(|((_, n), p)| (n.to_string(), json!(p))).collect::<serde_json::Map<_, _>>(),
+            "forward_evals_per_audit": round1(self.forward as f64 / self.audits.max(1) as f64),
+        })
+    }
+}
+
+const MODES: [&str; 4] = ["f64_generic", "f64_plain", "f32_generic", "f32_plain"];
+
+/// The audit of mode `m` (plain modes go through the layer's own forward).
+fn audit_for(m: usize, seed: u64) -> Audit {
+    Audit::new().seed(seed).own_precision(m == 1 || m == 3)
+}
+
+fn program_mode<R: Real>(mode: &mut Mode, m: usize, n: u64) {
+    for seed in 0..n {
+        let (program, args) = Program::<R>::random(seed);
+        let audit = audit_for(m, seed);
+        let report = audit
+            .run(&program, &args)
+            .unwrap_or_else(|e| panic!("program {seed}: {e}"));
+        mode.record_correct(&report, || {
+            format!("program {seed}: {}", program.describe())
+        });
+        if seed % PLANT_EVERY != 0 {
+            continue;
+        }
+        let precision = program.forward_precision(&args);
+        for (k, (delta, _)) in SIZES.iter().enumerate() {
+            let Some((buggy, _)) = program.with_effective_bug(&args, *delta) else {
+                continue;
+            };
+            if precision > delta / 10.0 {
+                mode.unresolvable[k] += 1;
+                continue;
+            }
+            mode.planted[k] += 1;
+            let r = audit
+                .run(&buggy, &args)
+                .unwrap_or_else(|e| panic!("program {seed}: {e}"));
+            mode.detected[k] += usize::from(!r.passed());
+        }
     }
 }
 
@@ -171,40 +297,64 @@ fn target_dir() -> PathBuf {
     }
 }
 
+fn env_count(name: &str, default: u64) -> u64 {
+    std::env::var(name)
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(default)
+}
+
+fn sweep_configs() -> Vec<FixedStep> {
+    let mut v: Vec<FixedStep> = [1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8]
+        .into_iter()
+        .map(|h| FixedStep { step: Some(h) })
+        .collect();
+    v.push(FixedStep { step: None });
+    v
+}
+
 fn main() {
     let quick = std::env::args().any(|a| a == "--quick")
         || std::env::var("PLUMBLINE_QUALITY_QUICK").is_ok_and(|v| !v.is_empty() && v != "0");
-    let n: u64 = std::env::var("PLUMBLINE_QUALITY_CASES")
-        .ok()
-        .and_then(|v| v.parse().ok())
-        .unwrap_or(if quick { 50 } else { 1000 });
+    let n_cases = env_count("PLUMBLINE_QUALITY_CASES", if quick { 20 } else { 1000 });
+    let n_programs = env_count(
+        "PLUMBLINE_QUALITY_PROGRAMS",
+        if quick { 200 } else { 10_000 },
+    );
     let cases = registry();
+    let configs = sweep_configs();
     let mut ours = Totals::default();
-    let mut base = Totals::default();
+    let mut sweep: Vec<Totals> = vec![Totals::default(); configs.len()];
+    let mut modes: Vec<Mode> = (0..4).map(|_| Mode::default()).collect();
 
-    println!("plumbline quality bench: {n} random cases per correct layer and precision");
+    println!("plumbline quality bench: {n_cases} correct cases per gallery layer and precision, {n_programs} random programs per mode");
     println!();
-    println!("Planted bugs (arguments and audit seed 1)");
+    println!("Gallery: planted bugs (arguments and audit seed 1)");
     println!(
-        "{:<46} {:<22} {:<4} {:<60} {:<4}",
-        "layer/bug", "expected", "plb", "plumbline diagnosis (expected tensor's row)", "base"
+        "{:<46} {:<26} {:<4} {:<64}",
+        "layer/bug", "expected", "plb", "plumbline diagnosis (expected tensor's row)"
     );
     for case in cases.iter().filter(|c| c.bug.is_some()) {
         let bug = case.bug.unwrap_or_else(|| unreachable!());
-        let subject = case.subject(1);
-        let report = subject
+        let report = case
+            .subject(1)
             .audit(&Audit::new().seed(1))
             .unwrap_or_else(|e| panic!("{}: {e}", case.label()));
         let outcome = judge(&bug.expect, &report);
-        // A fresh layer for the baseline: a layer with state between calls
-        // must not carry the audit's calls into the baseline's.
-        let b = run_baseline(&case.subject(1), 1);
         ours.planted += 1;
-        base.planted += 1;
         ours.detected += usize::from(outcome.detected);
         ours.right_diagnosis += usize::from(outcome.right_diagnosis);
-        base.detected += usize::from(!b.passed);
-        let mark = |d: bool| if d { "yes" } else { "NO" };
+        let specific = report
+            .row(bug.expect.tensor)
+            .and_then(|r| r.diagnosis.as_ref())
+            .is_some_and(|d| d.is_specific());
+        ours.specific += usize::from(outcome.right_diagnosis && specific);
+        for (cfg, t) in configs.iter().zip(sweep.iter_mut()) {
+            // A fresh layer: state carried between calls must not leak.
+            let b = run_fixed(*cfg, &case.subject(1), 1);
+            t.planted += 1;
+            t.detected += usize::from(!b.passed);
+        }
         let expected = format!("{}: {:?}", bug.expect.tensor, bug.expect.kind);
         let said = if outcome.right_diagnosis {
             outcome.said.clone()
@@ -212,151 +362,196 @@ fn main() {
             format!("{} [unexpected]", outcome.said)
         };
         println!(
-            "{:<46} {:<22} {:<4} {:<60} {:<4}",
+            "{:<46} {:<26} {:<4} {:<64}",
             case.label(),
-            truncate(&expected, 22),
-            mark(outcome.detected),
-            truncate(&said, 60),
-            mark(!b.passed)
+            truncate(&expected, 26),
+            if outcome.detected { "yes" } else { "NO" },
+            truncate(&said, 64)
         );
     }
 
     println!();
-    println!("Correct layers: false alarms in {n} random cases (arguments and audit seed 0..{n})");
+    println!("Gallery: correct layers, false alarms in {n_cases} cases each");
     println!(
-        "{:<24} {:<5} {:>7} | {:>9} {:>9} {:>9} | {:>9} {:>9} {:>9}",
-        "layer",
-        "prec",
-        "cases",
-        "plb alarm",
-        "plb fwd",
-        "plb bwd",
-        "base alrm",
-        "base fwd",
-        "base bwd"
+        "{:<24} {:<5} {:>9} {:>9} {:>9}",
+        "layer", "prec", "generic", "plain", "fwd/aud"
     );
     for case in cases.iter().filter(|c| c.bug.is_none()) {
-        let (mut a_ours, mut a_base) = (0, 0);
-        let (mut f_ours, mut b_ours, mut f_base, mut b_base) = (0, 0, 0, 0);
-        for seed in 0..n {
+        let (mut generic_alarms, mut plain_alarms, mut forward) = (0, 0, 0);
+        for seed in 0..n_cases {
             let subject = case.subject(seed);
-            let r = run_plumbline(&subject, seed);
-            let b = run_baseline(&case.subject(seed), seed);
-            a_ours += usize::from(!r.passed);
-            a_base += usize::from(!b.passed);
-            f_ours += r.forward;
-            b_ours += r.backward;
-            f_base += b.forward;
-            b_base += b.backward;
-        }
-        for (t, alarms, f, bw) in [
-            (&mut ours, a_ours, f_ours, b_ours),
-            (&mut base, a_base, f_base, b_base),
-        ] {
-            if case.precision == "f64" {
-                t.cases_f64 += n as usize;
-                t.alarms_f64 += alarms;
-            } else {
-                t.cases_f32 += n as usize;
-                t.alarms_f32 += alarms;
+            let f64_layer = case.precision == "f64";
+            // Generic gallery layers run in both of their precision's modes;
+            // f32-only layers are plain.
+            let plain_mode = if f64_layer { 1 } else { 3 };
+            if case.generic {
+                let generic_mode = if f64_layer { 0 } else { 2 };
+                let r = subject
+                    .audit(&audit_for(generic_mode, seed))
+                    .unwrap_or_else(|e| panic!("{}: {e}", case.label()));
+                modes[generic_mode].record_correct(&r, || {
+                    format!("gallery {} {} seed {seed}", case.layer, case.precision)
+                });
+                ours.count_correct(case.precision, r.passed(), r.forward_evals);
+                generic_alarms += usize::from(!r.passed());
+                forward += r.forward_evals;
             }
-            t.forward += f;
-            t.backward += bw;
-            t.audits += n as usize;
+            let r = subject
+                .audit(&audit_for(plain_mode, seed))
+                .unwrap_or_else(|e| panic!("{}: {e}", case.label()));
+            modes[plain_mode].record_correct(&r, || {
+                format!(
+                    "gallery {} {} plain seed {seed}",
+                    case.layer, case.precision
+                )
+            });
+            plain_alarms += usize::from(!r.passed());
+            if !case.generic {
+                ours.count_correct(case.precision, r.passed(), r.forward_evals);
+                forward += r.forward_evals;
+            }
+            for (cfg, t) in configs.iter().zip(sweep.iter_mut()) {
+                let b = run_fixed(*cfg, &case.subject(seed), seed);
+                t.count_correct(case.precision, b.passed, b.forward);
+            }
         }
-        let per = |x: usize| x as f64 / n as f64;
         println!(
-            "{:<24} {:<5} {:>7} | {:>9} {:>9.1} {:>9.1} | {:>9} {:>9.1} {:>9.1}",
+            "{:<24} {:<5} {:>9} {:>9} {:>9.1}",
             case.layer,
             case.precision,
-            n,
-            a_ours,
-            per(f_ours),
-            per(b_ours),
-            a_base,
-            per(f_base),
-            per(b_base)
+            if case.generic {
+                generic_alarms.to_string()
+            } else {
+                "-".into()
+            },
+            plain_alarms,
+            forward as f64 / n_cases as f64
         );
     }
 
     println!();
-    println!("Summary (evaluations per audit: mean over the correct-layer audits)");
-    println!("{:<26} {:>12} {:>12}", "", "plumbline", "baseline");
-    let rows: [(&str, String, String); 10] = [
+    println!(
+        "Random programs: {n_programs} per mode, planted rule errors on every {PLANT_EVERY}th"
+    );
+    program_mode::<f64>(&mut modes[0], 0, n_programs);
+    program_mode::<f64>(&mut modes[1], 1, n_programs);
+    program_mode::<f32>(&mut modes[2], 2, n_programs);
+    program_mode::<f32>(&mut modes[3], 3, n_programs);
+    println!(
+        "{:<12} {:>8} {:>7} | {:>13} {:>13} {:>13} {:>13} | {:>8}",
+        "mode", "correct", "alarms", "1e-2", "1e-4", "1e-6", "1e-8", "fwd/aud"
+    );
+    for (name, m) in MODES.iter().zip(&modes) {
+        let cell = |k: usize| format!("{}/{}", m.detected[k], m.planted[k]);
+        println!(
+            "{:<12} {:>8} {:>7} | {:>13} {:>13} {:>13} {:>13} | {:>8.1}",
+            name,
+            m.correct,
+            m.alarms,
+            cell(0),
+            cell(1),
+            cell(2),
+            cell(3),
+            m.forward as f64 / m.audits.max(1) as f64
+        );
+        for e in &m.examples {
+            println!("    false alarm: {e}");
+        }
+    }
+
+    println!();
+    println!("Fixed-step comparison: central differences at one step, |a-n| <= t + t|n|, t = 10(eps/h + h^2)");
+    println!(
+        "{:<22} {:>10} {:>12} {:>12}",
+        "step", "detected", "alarms f64", "alarms f32"
+    );
+    let mut sweep_json = Vec::new();
+    for (cfg, t) in configs.iter().zip(&sweep) {
+        println!(
+            "{:<22} {:>10} {:>12} {:>12}",
+            cfg.label(),
+            format!("{}/{}", t.detected, t.planted),
+            format!("{}/{}", t.alarms_f64, t.cases_f64),
+            format!("{}/{}", t.alarms_f32, t.cases_f32)
+        );
+        sweep_json.push(json!({
+            "step": cfg.label(),
+            "abs": "10*(eps/h + h^2)",
+            "rel": "10*(eps/h + h^2)",
+            "detected": t.detected,
+            "false_alarms_f64": t.alarms_f64,
+            "false_alarms_f32": t.alarms_f32,
+        }));
+    }
+    // The best configuration: fewest false alarms, then most detections.
+    let best = (0..configs.len())
+        .min_by_key(|&k| {
+            (
+                sweep[k].alarms_f64 + sweep[k].alarms_f32,
+                usize::MAX - sweep[k].detected,
+            )
+        })
+        .unwrap_or(0);
+    let mut fixed_json = sweep[best].json();
+    if let Value::Object(map) = &mut fixed_json {
+        map.insert("best_step".into(), json!(configs[best].label()));
+        map.insert("sweep".into(), Value::Array(sweep_json));
+    }
+    println!("best: step {}", configs[best].label());
+
+    println!();
+    println!("Summary (gallery)              plumbline   best fixed step");
+    let b = &sweep[best];
+    for (k, a, c) in [
         (
-            "planted bugs",
-            ours.planted.to_string(),
-            base.planted.to_string(),
-        ),
-        (
-            "detected",
-            ours.detected.to_string(),
-            base.detected.to_string(),
+            "planted bugs detected",
+            format!("{}/{}", ours.detected, ours.planted),
+            format!("{}/{}", b.detected, b.planted),
         ),
         (
             "right diagnosis",
-            ours.right_diagnosis.to_string(),
-            "n/a (0)".to_string(),
-        ),
-        (
-            "correct cases f64",
-            ours.cases_f64.to_string(),
-            base.cases_f64.to_string(),
+            format!("{} ({} specific)", ours.right_diagnosis, ours.specific),
+            "-".into(),
         ),
         (
             "false alarms f64",
-            ours.alarms_f64.to_string(),
-            base.alarms_f64.to_string(),
-        ),
-        (
-            "correct cases f32",
-            ours.cases_f32.to_string(),
-            base.cases_f32.to_string(),
+            format!("{}/{}", ours.alarms_f64, ours.cases_f64),
+            format!("{}/{}", b.alarms_f64, b.cases_f64),
         ),
         (
             "false alarms f32",
-            ours.alarms_f32.to_string(),
-            base.alarms_f32.to_string(),
+            format!("{}/{}", ours.alarms_f32, ours.cases_f32),
+            format!("{}/{}", b.alarms_f32, b.cases_f32),
         ),
-        (
-            "forward evals / audit",
-            format!("{:.1}", ours.forward_per_audit()),
-            format!("{:.1}", base.forward_per_audit()),
-        ),
-        (
-            "backward evals / audit",
-            format!("{:.1}", ours.backward_per_audit()),
-            format!("{:.1}", base.backward_per_audit()),
-        ),
-        (
-            "detection rate",
-            percent(ours.detected, ours.planted),
-            percent(base.detected, base.planted),
-        ),
-    ];
-    for (k, a, b) in rows {
-        println!("{k:<26} {a:>12} {b:>12}");
+    ] {
+        println!("{k:<30} {a:>12} {c:>16}");
     }
 
-    let json = serde_json::json!({
+    let modes_json: serde_json::Map<String, Value> = MODES
+        .iter()
+        .zip(&modes)
+        .map(|(name, m)| (name.to_string(), m.json()))
+        .collect();
+    let out = json!({
         "checkers": {
             "plumbline": ours.json(),
-            "baseline": base.json(),
-        }
+            "fixed_step": fixed_json,
+        },
+        "modes": modes_json,
+        "settings": {
+            "gallery_cases_per_layer": n_cases,
+            "programs_per_mode": n_programs,
+            "plant_every": PLANT_EVERY,
+        },
     });
     let dir = target_dir();
     let path = dir.join("bench-quality.json");
-    let text = serde_json::to_string_pretty(&json).unwrap_or_else(|e| panic!("JSON: {e}"));
+    let text = serde_json::to_string_pretty(&out).unwrap_or_else(|e| panic!("JSON: {e}"));
     if let Err(e) = std::fs::create_dir_all(&dir).and_then(|_| std::fs::write(&path, &text)) {
         panic!("cannot write {}: {e}", path.display());
     }
     println!();
     println!("wrote {}", path.display());
-    println!("{text}");
-}
-
-fn percent(a: usize, b: usize) -> String {
-    format!("{:.1} %", 100.0 * a as f64 / b.max(1) as f64)
 }
 
 fn truncate(s: &str, n: usize) -> String {

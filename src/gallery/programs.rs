@@ -329,6 +329,37 @@ impl<R: Real> Program<R> {
         self.with_bug_at(pick, delta)
     }
 
+    /// How precisely the program's own forward, in `R`, computes its outputs
+    /// at `args`: the largest |y − y₆₄| over the largest |y₆₄| (outputs in
+    /// `R` against the same forward in `f64`; for `R = f64`, the `f32`
+    /// deviation scaled by ε₆₄/ε₃₂, since a forward's amplification of its
+    /// rounding does not depend on the precision). A planted rule error
+    /// smaller than this is below what the layer itself can resolve here.
+    pub fn forward_precision(&self, args: &Args<R>) -> f64 {
+        let exact = self.forward_generic(&args.map(|v| v.as_f64()));
+        let low = self.forward_generic(&args.map(|v| v.as_f64() as f32));
+        let size = exact
+            .iter()
+            .flat_map(|t| t.data())
+            .fold(0.0_f64, |m, v| m.max(v.abs()));
+        let off = exact
+            .iter()
+            .zip(&low)
+            .flat_map(|(e, l)| e.data().iter().zip(l.data()))
+            .fold(0.0_f64, |m, (e, l)| m.max((e - f64::from(*l)).abs()));
+        let relative = if size > 0.0 { off / size } else { 0.0 };
+        let scale = if R::EPS < 1e-10 {
+            f64::EPSILON / f64::from(f32::EPSILON)
+        } else {
+            1.0
+        };
+        if relative.is_finite() {
+            relative * scale
+        } else {
+            f64::INFINITY
+        }
+    }
+
     /// The program in one line, e.g. `width 3: affine → squash(1.2) → series-erf`.
     pub fn describe(&self) -> String {
         let names: Vec<String> = self

@@ -317,8 +317,18 @@ fn flat_at_precision(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
     })
 }
 
-/// Offsets of the backward's spread, in units of ε·max(|x|, 1).
-const SPREAD_OFFSETS: [f64; 6] = [-4096.0, -512.0, -64.0, 64.0, 512.0, 4096.0];
+/// Offsets of the backward's spread, in units of ε·max(|x|, 1): up to a
+/// few thousand ulps in `f64` (10⁻¹² relative, enough to move
+/// intermediates far larger than x by several of their own ulps), up to 64
+/// in `f32` (where a few thousand would be 5·10⁻⁴, far enough to meet the
+/// layer's real curvature and kinks).
+fn spread_offsets<R: Real>() -> [f64; 6] {
+    if R::EPS < 1e-10 {
+        [-4096.0, -512.0, -64.0, 64.0, 512.0, 4096.0]
+    } else {
+        [-64.0, -16.0, -4.0, 4.0, 16.0, 64.0]
+    }
+}
 
 /// Step of the kink test, as a multiple of ε^(1/3)·max(|x|, ε^(1/3)):
 /// small enough that a smooth φ's curvature cannot pass for a kink, and
@@ -352,7 +362,7 @@ pub(crate) struct Engine<'a, L: Forward + ?Sized> {
     /// The differentiable tensors (positions in `Args`), in gradient order.
     movable: Vec<usize>,
     /// The backward's gradients with every differentiable tensor moved
-    /// along one direction, per offset of `SPREAD_OFFSETS` (built on first
+    /// along one direction, per offset of `spread_offsets` (built on first
     /// use).
     spread: Option<Vec<Option<Vec<Vec<f64>>>>>,
     /// Per output (flattened): how many ulps of the layer's precision the
@@ -418,16 +428,17 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         j: usize,
         at_point: f64,
     ) -> Result<f64, Error> {
+        let offsets_in_ulps = spread_offsets::<L::Real>();
         if self.spread.is_none() {
-            let mut samples = Vec::with_capacity(SPREAD_OFFSETS.len());
-            for k in SPREAD_OFFSETS {
+            let mut samples = Vec::with_capacity(offsets_in_ulps.len());
+            for k in offsets_in_ulps {
                 samples.push(self.backward_along(k)?);
             }
             self.spread = Some(samples);
         }
-        let mut offsets = Vec::with_capacity(SPREAD_OFFSETS.len());
-        let mut values = Vec::with_capacity(SPREAD_OFFSETS.len());
-        for (k, sample) in SPREAD_OFFSETS.iter().zip(self.spread.iter().flatten()) {
+        let mut offsets = Vec::with_capacity(offsets_in_ulps.len());
+        let mut values = Vec::with_capacity(offsets_in_ulps.len());
+        for (k, sample) in offsets_in_ulps.iter().zip(self.spread.iter().flatten()) {
             if let Some(v) = sample
                 .as_ref()
                 .and_then(|g| g.get(grad))
@@ -709,7 +720,11 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
     /// sees (a ReLU at 0 beside an x of 10⁻⁶) but inside the steps that
     /// real differences take. Any kink found is reported as not at the
     /// point.
-    pub(crate) fn kink_in_stencil(&mut self, slot: usize, j: usize) -> Result<Option<KinkProbe>, Error> {
+    pub(crate) fn kink_in_stencil(
+        &mut self,
+        slot: usize,
+        j: usize,
+    ) -> Result<Option<KinkProbe>, Error> {
         match self.ask(slot, &[(j, 1.0)], Ask::StencilKink(KINK_STEP))? {
             Answer::Probe(p) => Ok(p.map(|p| KinkProbe {
                 at_point: false,

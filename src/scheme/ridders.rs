@@ -106,10 +106,10 @@ fn extrapolate(line: &mut impl Line, first_step: f64) -> Estimate {
         }
     }
     // Entries can agree by chance (a linear φ): never claim less than the
-    // rounding of the smallest step used, nor than 100ε of the terms, nor
+    // rounding of the smallest step used, nor than 16ε of the terms, nor
     // than what outputs that did not move even at the widest step may hide.
     let floor = (4.0 * best.rounding)
-        .max(100.0 * eps * (best.value.abs() + first.terms))
+        .max(16.0 * eps * (best.value.abs() + first.terms))
         .max(quantization(&first, eps));
     let truncation = TRUST * best.error;
     Estimate {
