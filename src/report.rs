@@ -17,6 +17,28 @@ use crate::tolerance::Tolerance;
 /// the same words as the table and reads back into an identical report,
 /// NaN and infinities included (they are written as the strings `"NaN"`,
 /// `"inf"`, `"-inf"`).
+///
+/// A report carries the verdict, so dropping one unread is a warning:
+///
+/// ```compile_fail
+/// #![deny(unused_must_use)]
+/// # use plumbline::prelude::*;
+/// # struct Twice;
+/// # impl Layer for Twice {
+/// #     type Real = f64;
+/// #     fn signature(&self) -> Signature { Signature::new().input("x", "n").output("y", "n") }
+/// #     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
+/// #         Gradients::from(vec![g[0].map(|g| 2.0 * g)])
+/// #     }
+/// # }
+/// # impl Forward for Twice {
+/// #     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> { vec![a.input(0).map(|x| 2.0 * x)] }
+/// # }
+/// fn check(args: &Args<f64>) -> Result<(), plumbline::Error> {
+///     Audit::new().run(&Twice, args)?; // error: unused `Report` that must be used
+///     Ok(())
+/// }
+/// ```
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 #[must_use = "a report carries the verdict: call `assert_passed()` or check `passed()`"]
 #[non_exhaustive]

@@ -67,8 +67,18 @@ impl Default for Tolerance {
 fn refuse(setting: &str, value: f64, detail: &str) -> Error {
     Error::Setting {
         setting: setting.to_string(),
-        value: value.to_string(),
+        value: short(value),
         detail: detail.to_string(),
+    }
+}
+
+/// A number as a person types it: `4`, `0.5`, `1e300`, `-1e-9`, `NaN`.
+fn short(x: f64) -> String {
+    let a = x.abs();
+    if a != 0.0 && a.is_finite() && !(1e-4..1e16).contains(&a) {
+        format!("{x:e}")
+    } else {
+        x.to_string()
     }
 }
 

@@ -205,9 +205,15 @@ impl Audit {
     ) -> Result<Vec<Estimate>, Error> {
         let mut estimates = Vec::with_capacity(t.indices.len());
         for &j in t.indices {
-            let e = match t.scheme {
-                Scheme::ComplexStep => engine.complex_estimate(t.slot, j)?,
-                _ => engine.real_estimate(t.slot, j, t.scheme)?,
+            // An element that is ±∞ or NaN cannot be moved: it is reported
+            // as not compared, and only its gradient's finiteness counts.
+            let e = if !engine.value(t.slot, j).is_finite() {
+                Estimate::not_finite(0)
+            } else {
+                match t.scheme {
+                    Scheme::ComplexStep => engine.complex_estimate(t.slot, j)?,
+                    _ => engine.real_estimate(t.slot, j, t.scheme)?,
+                }
             };
             estimates.push(e);
             progress.step(&t.spec.name, engine.evals);
@@ -257,7 +263,7 @@ impl Audit {
         let mut compared = 0;
         for k in picks {
             let (j, cs) = (indices[k], &estimates[k]);
-            if !cs.value.is_finite() || compared == 2 {
+            if !cs.value.is_finite() || !engine.value(slot, j).is_finite() || compared == 2 {
                 continue;
             }
             let Some((check, rounding)) = engine.quick_check(slot, j)? else {

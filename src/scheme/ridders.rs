@@ -27,6 +27,10 @@ const MAX_ROWS: usize = 10;
 /// Stop when the newest highest-order value moves by more than this many
 /// times the best error so far.
 const STOP_RATIO: f64 = 2.0;
+/// At most this many restarts from smaller first steps: with the checks
+/// and the extrapolation's ten rows, an element costs at most a few
+/// hundred evaluations whatever the forward does.
+const MAX_RESTARTS: usize = 12;
 /// The distance of an entry from its parents can understate its true
 /// error about 15× (measured on the published test functions); the error
 /// bar is this many times that distance.
@@ -194,7 +198,9 @@ pub(crate) fn estimate_from(line: &mut impl Line, first_step: f64) -> Estimate {
     evals += best.evals;
     // Restarts: 8× smaller first steps down to 64× the first check's step,
     // then 64× smaller down to 8× the finest check's.
-    while !best.conclusive && first / 8.0 >= 8.0 * lowest {
+    let mut restarts = 0;
+    while !best.conclusive && first / 8.0 >= 8.0 * lowest && restarts < MAX_RESTARTS {
+        restarts += 1;
         let shrink = if first / 8.0 >= 64.0 * checks[0].step {
             8.0
         } else {

@@ -1,0 +1,481 @@
+//! Trust on layers the checker was not tuned on: one regression test per
+//! class of false alarm found by auditing correct layers written without
+//! the checker in mind, each with a layer of this project's own (orchard
+//! frost risk from weather-station readings, hive monitoring). Each class is
+//! also checked the other way: a planted error of the kind the fix could
+//! have hidden is still caught.
+
+use plumbline::prelude::*;
+use plumbline::report::ElementStatus;
+use plumbline::Diagnosis;
+
+fn vector<R: Real>(v: &[f64]) -> Tensor<R> {
+    Tensor::new(vec![v.len()], v.iter().map(|&x| R::from_f64(x)).collect()).unwrap()
+}
+
+/// Points in [lo, hi], evenly spread, for sweeps.
+fn spread(lo: f64, hi: f64, n: usize) -> Vec<f64> {
+    (0..n).map(|k| lo + (hi - lo) * (k as f64 + 0.5) / n as f64).collect()
+}
+
+// ------------------------------------ 1. a forward that loses precision
+
+/// Frost probability from a standardised dew-point spread x:
+/// y = ½(1 + erf(x)), with erf computed by its power series
+/// erf x = (2/√π) Σ (−1)ⁿ x^(2n+1)/(n!(2n+1)) (NIST DLMF 7.6.1), whose terms
+/// cancel for |x| near 2.5. The backward uses the exact derivative
+/// erf′(x) = (2/√π) e^(−x²) (DLMF 7.10.1), optionally off by a factor.
+struct FrostProbability {
+    factor: f64,
+}
+
+fn erf_series<T: Scalar>(x: T) -> T {
+    let c = |v: f64| T::from(v).unwrap();
+    let x2 = x * x;
+    let (mut power, mut sum) = (x, x);
+    for n in 1..60 {
+        power = -power * x2 / c(n as f64);
+        sum += power / c((2 * n + 1) as f64);
+    }
+    sum * c(std::f64::consts::FRAC_2_SQRT_PI)
+}
+
+impl Layer for FrostProbability {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "station").output("p", "station")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let x = a.input(0);
+        Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |ix| {
+            let d = 0.5 * std::f64::consts::FRAC_2_SQRT_PI * (-x[ix] * x[ix]).exp();
+            self.factor * d * up[0][ix]
+        })])
+    }
+}
+
+impl GenericForward for FrostProbability {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let half = T::from(0.5).unwrap();
+        vec![a.input(0).map(|x| half * (T::one() + erf_series(x)))]
+    }
+}
+
+/// Chance that a hive is calm: y = 1 + tanh(u), written the obvious way
+/// (it cancels for u ≲ −3), with the textbook derivative 1 − tanh².
+struct CalmHive {
+    factor: f64,
+}
+
+impl Layer for CalmHive {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("u", "hive").output("y", "hive")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let u = a.input(0);
+        Gradients::from(vec![Tensor::from_fn(u.shape().to_vec(), |ix| {
+            let t = u[ix].tanh();
+            self.factor * (1.0 - t * t) * up[0][ix]
+        })])
+    }
+}
+
+impl GenericForward for CalmHive {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        vec![a.input(0).map(|u| T::one() + u.tanh())]
+    }
+}
+
+#[test]
+fn a_forward_that_cancels_on_its_own_is_not_a_false_alarm() {
+    // The cancelling ranges: |x| in 2..3 for the series, u in −4..−2.5.
+    let xs = [spread(-3.0, -2.0, 40), spread(2.0, 3.0, 40), vec![2.5, -2.5]].concat();
+    for (k, chunk) in xs.chunks(4).enumerate() {
+        let args = Args::new(vec![vector::<f64>(chunk)], vec![]);
+        let r = Audit::new().seed(k as u64).run(&FrostProbability { factor: 1.0 }, &args).unwrap();
+        assert!(r.passed(), "{chunk:?}\n{r}");
+    }
+    for (k, chunk) in spread(-4.0, -2.5, 60).chunks(4).enumerate() {
+        let args = Args::new(vec![vector::<f64>(chunk)], vec![]);
+        let r = Audit::new().seed(k as u64).run(&CalmHive { factor: 1.0 }, &args).unwrap();
+        assert!(r.passed(), "{chunk:?}\n{r}");
+    }
+}
+
+#[test]
+fn and_a_small_error_there_is_still_caught() {
+    // The bound carries the forward's own rounding at the point, measured
+    // there (about 1e-13 relative for the series near 2.5): an error of
+    // 1e-8 is far above it.
+    let args = Args::new(vec![vector::<f64>(&[2.4, -2.6, 0.3])], vec![]);
+    let r = Audit::new().run(&FrostProbability { factor: 1.0 + 1e-8 }, &args).unwrap();
+    assert!(!r.passed(), "{r}");
+    let args = Args::new(vec![vector::<f64>(&[-3.2, -2.9, 0.1])], vec![]);
+    let r = Audit::new().run(&CalmHive { factor: 1.0 + 1e-8 }, &args).unwrap();
+    assert!(!r.passed(), "{r}");
+}
+
+// ----------------------------------------- 2. independent kinks together
+
+/// Frost degree-hours above 0 °C and a clipped sensor reading: y₀ = relu(x₀),
+/// y₁ = relu(x₁), y₂ = clip(x₂, −1, 1), y₃ = clip(x₃, −1, 1). Conventions:
+/// relu′(0) = 0, clip′ = 1 on the closed interval.
+struct FrostClips;
+
+impl Layer for FrostClips {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "4").output("y", "4")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let x = a.input(0);
+        Gradients::from(vec![Tensor::from_fn(vec![4], |ix| {
+            let v = x[ix];
+            let slope = if ix[0] < 2 {
+                if v > 0.0 { 1.0 } else { 0.0 }
+            } else if (-1.0..=1.0).contains(&v) {
+                1.0
+            } else {
+                0.0
+            };
+            slope * up[0][ix]
+        })])
+    }
+}
+
+impl GenericForward for FrostClips {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let x = a.input(0);
+        let one = T::one();
+        vec![Tensor::from_fn(vec![4], |ix| {
+            let v = x[ix];
+            if ix[0] < 2 {
+                v.max(T::zero())
+            } else {
+                v.max(-one).min(one)
+            }
+        })]
+    }
+}
+
+#[test]
+fn independent_kinks_moved_together_are_not_a_shared_gradient() {
+    // Two ReLUs exactly at 0 and a clip at both of its bounds: separate
+    // kinks. Over many upstream draws (which mix convex and concave
+    // directions), none may read as "kinks share one gradient".
+    let args = Args::new(vec![vector::<f64>(&[0.0, 0.0, -1.0, 1.0])], vec![]);
+    for seed in 0..64 {
+        for scheme in [Scheme::ComplexStep, Scheme::Ridders] {
+            let r = Audit::new().seed(seed).scheme(scheme).run(&FrostClips, &args).unwrap();
+            assert!(r.passed(), "seed {seed} {scheme}: {r}");
+            assert_eq!(r.rows[0].kinks, 4, "{r}");
+        }
+    }
+}
+
+/// Pairwise max of hive readings, ties routed to the first (correct) or to
+/// both (wrong).
+struct HivePairMax {
+    both: bool,
+}
+
+impl Layer for HivePairMax {
+    type Real = f32;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "pairs, 2").output("y", "pairs")
+    }
+    fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
+        let x = a.input(0);
+        Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |ix| {
+            let (l, r) = (x[[ix[0], 0]], x[[ix[0], 1]]);
+            let wins = if ix[1] == 0 { l >= r } else { r > l || (self.both && r == l) };
+            if wins {
+                up[0][[ix[0]]]
+            } else {
+                0.0
+            }
+        })])
+    }
+}
+
+impl Forward for HivePairMax {
+    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
+        let x = a.input(0);
+        vec![Tensor::from_fn(vec![x.shape()[0]], |ix| x[[ix[0], 0]].max(x[[ix[0], 1]]))]
+    }
+}
+
+#[test]
+fn ties_of_one_max_still_share_one_gradient() {
+    let x = Tensor::new(vec![3, 2], vec![0.5_f32, 0.5, -0.25, 0.75, 1.0, 1.0]).unwrap();
+    let args = Args::new(vec![x], vec![]);
+    for seed in 0..16 {
+        let r = Audit::new().seed(seed).run(&HivePairMax { both: false }, &args).unwrap();
+        assert!(r.passed(), "seed {seed}: {r}");
+        let r = Audit::new().seed(seed).run(&HivePairMax { both: true }, &args).unwrap();
+        assert!(
+            matches!(r.rows[0].diagnosis, Some(Diagnosis::SharedKink { .. })),
+            "seed {seed}: {r}"
+        );
+    }
+}
+
+// ------------------------------------------------ 3. plain f32 layers
+
+/// A plain f32 layer of awkward elements: y₀ = x₀³ (zero gradient at 0),
+/// y₁ = sin(40x₁) (strongly curved), y₂ = 10⁻⁶·x₂ (tiny gradient),
+/// y₃ = x₃² (ordinary); a wrong derivative can be planted at one element.
+struct AwkwardStation {
+    wrong_at: Option<usize>,
+}
+
+impl Layer for AwkwardStation {
+    type Real = f32;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "4").output("y", "4")
+    }
+    fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
+        let x = a.input(0);
+        Gradients::from(vec![Tensor::from_fn(vec![4], |ix| {
+            let v = x[ix];
+            let d = match ix[0] {
+                0 => 3.0 * v * v,
+                1 => 40.0 * (40.0 * v).cos(),
+                2 => 1e-6,
+                _ => 2.0 * v,
+            };
+            let d = if self.wrong_at == Some(ix[0]) { 1.25 * d } else { d };
+            d * up[0][ix]
+        })])
+    }
+}
+
+impl Forward for AwkwardStation {
+    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
+        let x = a.input(0);
+        vec![Tensor::from_fn(vec![4], |ix| {
+            let v = x[ix];
+            match ix[0] {
+                0 => v * v * v,
+                1 => (40.0 * v).sin(),
+                2 => 1e-6 * v,
+                _ => v * v,
+            }
+        })]
+    }
+}
+
+#[test]
+fn plain_f32_layers_with_zero_tiny_and_curved_gradients_raise_no_alarm() {
+    for k in 0..200 {
+        let t = k as f64 / 200.0;
+        let x0 = if k % 5 == 0 { 0.0 } else { t - 0.5 };
+        let args = Args::new(vec![vector::<f32>(&[x0, 0.9 * t - 0.4, 2.0 * t - 1.0, 0.7 - t])], vec![]);
+        let r = Audit::new().seed(k).run(&AwkwardStation { wrong_at: None }, &args).unwrap();
+        assert!(r.passed(), "case {k}: {r}");
+    }
+}
+
+#[test]
+fn a_wrong_element_with_a_wide_reference_is_the_one_the_table_points_at() {
+    let args = Args::new(vec![vector::<f32>(&[0.3, 0.21, -0.4, 0.6])], vec![]);
+    let r = Audit::new().run(&AwkwardStation { wrong_at: Some(1) }, &args).unwrap();
+    assert!(!r.passed(), "{r}");
+    let row = &r.rows[0];
+    assert_eq!(row.worst.as_ref().unwrap().index.as_slice(), &[1], "{r}");
+    assert_eq!(row.failing, 1, "{r}");
+}
+
+// ------------------------------------------- 4. near the domain's edge
+
+/// Log-likelihood of frost probabilities and the distance of relative
+/// humidity from saturation: y₀ = ln(p), y₁ = √(1 − h), plain `f64`.
+struct EdgeOfDomain;
+
+impl Layer for EdgeOfDomain {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("p", "n").input("h", "n").output("lnp", "n").output("gap", "n")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let (p, h) = (a.input(0), a.input(1));
+        Gradients::from(vec![
+            Tensor::from_fn(p.shape().to_vec(), |ix| up[0][ix] / p[ix]),
+            Tensor::from_fn(h.shape().to_vec(), |ix| -0.5 * up[1][ix] / (1.0 - h[ix]).sqrt()),
+        ])
+    }
+}
+
+impl Forward for EdgeOfDomain {
+    fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> {
+        vec![a.input(0).map(f64::ln), a.input(1).map(|h| (1.0 - h).sqrt())]
+    }
+}
+
+#[test]
+fn steps_stay_where_the_forward_is_finite() {
+    // Ridders' widest step (0.1·max(|x|, 1)) would cross p = 0 and h = 1.
+    let ps = [5e-4, 1e-3, 7e-3, 0.02, 0.1];
+    let hs = [0.9999999, 0.99999, 0.999, 0.99, 0.9];
+    for scheme in [Scheme::Ridders, Scheme::Central] {
+        let args = Args::new(vec![vector::<f64>(&ps), vector::<f64>(&hs)], vec![]);
+        let r = Audit::new().scheme(scheme).run(&EdgeOfDomain, &args).unwrap();
+        assert!(r.passed(), "{scheme}: {r}");
+        for row in &r.rows {
+            assert!(row.elements.iter().all(|e| e.bound.is_finite()), "{scheme}: {r}");
+        }
+    }
+}
+
+// -------------------------------- 5. ties with a small upstream weight
+
+/// Pairwise max of hive readings scaled by 10⁻³ (a small weight on the tie).
+struct QuietPairMax;
+
+impl Layer for QuietPairMax {
+    type Real = f32;
+    fn signature(&self) -> Signature {
+        HivePairMax { both: false }.signature()
+    }
+    fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
+        let small: Vec<Tensor<f32>> = up.iter().map(|u| u.map(|g| 1e-3 * g)).collect();
+        HivePairMax { both: false }.backward(a, &small)
+    }
+}
+
+impl Forward for QuietPairMax {
+    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
+        vec![HivePairMax { both: false }.forward(a)[0].map(|y| 1e-3 * y)]
+    }
+}
+
+#[test]
+fn a_tie_under_a_small_weight_is_still_a_kink() {
+    let x = Tensor::new(vec![2, 2], vec![0.5_f32, 0.5, 30.0, 30.0]).unwrap();
+    let args = Args::new(vec![x], vec![]);
+    for seed in 0..16 {
+        let r = Audit::new().seed(seed).run(&QuietPairMax, &args).unwrap();
+        assert!(r.passed(), "seed {seed}: {r}");
+        assert!(r.rows[0].elements.iter().all(|e| e.status.is_kink()), "{r}");
+    }
+}
+
+// ----------------------------- 6. tiny and huge elements, complex step
+
+/// y₀ = √x₀, y₁ = ln x₁, y₂ = 1/x₂, y₃ = x₃·ln x₃: functions that bend on
+/// the scale of x itself. Exact derivatives in the backward.
+struct Bending;
+
+impl Layer for Bending {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "4").output("y", "4")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let x = a.input(0);
+        Gradients::from(vec![Tensor::from_fn(vec![4], |ix| derivative(ix[0], x[ix]) * up[0][ix])])
+    }
+}
+
+impl GenericForward for Bending {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let x = a.input(0);
+        vec![Tensor::from_fn(vec![4], |ix| {
+            let v = x[ix];
+            match ix[0] {
+                0 => v.sqrt(),
+                1 => v.ln(),
+                2 => v.recip(),
+                _ => v * v.ln(),
+            }
+        })]
+    }
+}
+
+/// Closed forms: d√x = 1/(2√x), d ln x = 1/x, d(1/x) = −1/x², d(x ln x) =
+/// ln x + 1 (elementary calculus; DLMF 4.1 and 4.8 for the logarithm).
+fn derivative(k: usize, v: f64) -> f64 {
+    match k {
+        0 => 0.5 / v.sqrt(),
+        1 => 1.0 / v,
+        2 => -1.0 / (v * v),
+        _ => v.ln() + 1.0,
+    }
+}
+
+#[test]
+fn the_complex_step_scales_with_the_element_from_1e_300_to_1e300() {
+    for e in [-300, -250, -150, -100, -40, -20, -12, -8, -3, 0, 3, 8, 20, 40, 100, 150] {
+        let v = 1.7 * 10f64.powi(e);
+        // 1/x² overflows below 1e-154 and underflows above 1e154: skip it
+        // there (its derivative is not a finite f64).
+        let x2 = if (1e-150..1e150).contains(&v) { v } else { 1.0 };
+        let args = Args::new(vec![vector::<f64>(&[v, v, x2, v])], vec![]);
+        let r = Audit::new().run(&Bending, &args).unwrap();
+        assert!(r.passed(), "x = {v:e}: {r}");
+        for el in &r.rows[0].elements {
+            let x = [v, v, x2, v][el.index];
+            let w = el.analytic / derivative(el.index, x);
+            let exact = w * derivative(el.index, x);
+            assert!(
+                (el.numeric - exact).abs() <= 1e-13 * exact.abs(),
+                "x = {x:e}, element {}: {} vs {exact}",
+                el.index,
+                el.numeric
+            );
+        }
+        // Not a kink anywhere: these are smooth points.
+        assert!(r.rows[0].elements.iter().all(|e| e.status == ElementStatus::Agrees));
+    }
+}
+
+// ------------------------------------- a small, consistent mismatch
+
+/// Soft sign of a frost margin, y = x/√(x² + ε) with ε = 1e-8, whose
+/// backward forgets ε: (1/√(x² + ε))·ε/(x² + ε) becomes 0 ... i.e. the
+/// backward returns the derivative of x/|x| (0) plus the first term only.
+struct SoftSign {
+    /// The backward uses ε = 0.999e-8 where the forward uses 1e-8: a slip
+    /// that moves every gradient by about 0.1 %.
+    wrong_eps: bool,
+}
+
+const SOFT_EPS: f64 = 1e-8;
+
+impl Layer for SoftSign {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "station").output("y", "station")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        // y = x / √(x² + ε), so ∂y/∂x = 1/√s − x²/s^(3/2) with s = x² + ε.
+        let eps = if self.wrong_eps { 0.999 * SOFT_EPS } else { SOFT_EPS };
+        let x = a.input(0);
+        Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |ix| {
+            let v = x[ix];
+            let s = v * v + eps;
+            (1.0 / s.sqrt() - v * v / (s * s.sqrt())) * up[0][ix]
+        })])
+    }
+}
+
+impl GenericForward for SoftSign {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let eps = T::from(SOFT_EPS).unwrap();
+        vec![a.input(0).map(|v| v / (v * v + eps).sqrt())]
+    }
+}
+
+#[test]
+fn a_tiny_consistent_mismatch_is_named_as_such() {
+    let args = Args::new(vec![vector::<f64>(&[1e-4, 2e-4, -1.5e-4, 3e-4])], vec![]);
+    let r = Audit::new().run(&SoftSign { wrong_eps: false }, &args).unwrap();
+    assert!(r.passed(), "{r}");
+    let r = Audit::new().run(&SoftSign { wrong_eps: true }, &args).unwrap();
+    assert!(!r.passed(), "{r}");
+    match &r.rows[0].diagnosis {
+        Some(Diagnosis::SmallMismatch { relative, .. }) => assert!(*relative < 1e-3, "{r}"),
+        other => panic!("{other:?}\n{r}"),
+    }
+}
