@@ -469,3 +469,312 @@ fn constants_and_generic_use() {
     // sin' = cos at π/3 = 0.5.
     assert!(ulps64(cs(|x| x.sin(), std::f64::consts::FRAC_PI_3), 0.5) <= 4.0);
 }
+
+// ------------------------------- 5. rules no other test reaches (review)
+//
+// Each value below is the closed-form derivative evaluated with mpmath 1.3
+// at 40 significant digits (printed to 21) at the exact binary value of the
+// argument (`mpf(0.7)` is the double nearest 0.7), and cross-checked
+// against `mpmath.diff` of the function itself (agreement to 1e-35 or
+// better; for erf and tanh at large arguments with 420 digits, since the
+// difference of erf(x) ≈ 1 needs them).
+
+/// Checks the complex-step derivative of `f` at each `(x, want)` within
+/// `tol` f64 ulps of `want`.
+fn within_ulps(
+    name: &str,
+    f: impl Fn(ComplexStep<f64>) -> ComplexStep<f64>,
+    cases: &[(f64, f64)],
+    tol: f64,
+) {
+    for &(x, want) in cases {
+        let got = cs(&f, x);
+        let e = ulps64(got, want);
+        println!("{name}'({x}) = {got:e}: {e} ulp from {want:e}");
+        assert!(e <= tol, "{name}'({x}) = {got:e}, want {want:e} ({e} ulp)");
+    }
+}
+
+#[test]
+fn hyperbolic_sine_and_cosine_dlmf_4_34() {
+    // sinh′ = cosh, cosh′ = sinh (DLMF §4.34; equation numbers 4.34.1 and
+    // 4.34.2 from memory). sinh(a + ib) = sinh a cos b + i cosh a sin b: the
+    // imaginary part is a product, no cancellation, so a few ulps.
+    within_ulps(
+        "sinh",
+        |x| x.sinh(),
+        &[
+            (0.7, 1.25516900563094298448),
+            (-2.5, 6.13228947966368611662),
+        ],
+        2.0,
+    );
+    within_ulps(
+        "cosh",
+        |x| x.cosh(),
+        &[
+            (0.7, 0.758583701839533447719),
+            (-2.5, -6.05020448103978732145),
+        ],
+        2.0,
+    );
+    // cosh′(0) = sinh 0 = 0 exactly: the derivative of an even function.
+    assert_eq!(cs(|x| x.cosh(), 0.0), 0.0);
+}
+
+#[test]
+fn inverse_hyperbolic_by_value_derivative_rule_dlmf_4_38() {
+    // DLMF §4.38(ii) (the section is confirmed; its equation numbers were
+    // not read): asinh′ = (1 + x²)^(−1/2), acosh′ = (x² − 1)^(−1/2) for
+    // x > 1, atanh′ = 1/(1 − x²) for |x| < 1.
+    within_ulps(
+        "asinh",
+        |x| x.asinh(),
+        &[
+            (0.7, 0.819231920519040483662),
+            (-3.0, 0.3162277660168379332),
+        ],
+        2.0,
+    );
+    within_ulps(
+        "acosh",
+        |x| x.acosh(),
+        &[
+            (1.5, 0.894427190999915878564),
+            (10.0, 0.100503781525921207549),
+        ],
+        2.0,
+    );
+    // At −0.9 the factor (1 − x)(1 + x) takes one rounding for 1 − x = 1.9
+    // (1 + x is exact by Sterbenz's lemma) and one for the product: a few
+    // ulps.
+    within_ulps(
+        "atanh",
+        |x| x.atanh(),
+        &[
+            (0.5, 1.33333333333333333333),
+            (-0.9, 5.26315789473684321241),
+        ],
+        4.0,
+    );
+}
+
+#[test]
+fn exp2_log_base_and_recip() {
+    // d/dx 2ˣ = 2ˣ ln 2 (from 2ˣ = e^(x ln 2), common practice).
+    within_ulps(
+        "exp2",
+        |x| x.exp2(),
+        &[
+            (0.7, 1.12602091687476765997),
+            (-3.5, 0.0612661339667841994821),
+        ],
+        4.0,
+    );
+    // log_b x = ln x / ln b (common practice): ∂/∂x = 1/(x ln b) at x = 3,
+    // b = 5; ∂/∂b = −ln x/(b ln² b) at the same point (the base seeded).
+    let five = ComplexStep::real(5.0_f64);
+    within_ulps(
+        "log(x, 5)",
+        |x| x.log(five),
+        &[(3.0, 0.207111644853203936902)],
+        4.0,
+    );
+    let three = ComplexStep::real(3.0_f64);
+    within_ulps(
+        "log(3, b)",
+        |b| three.log(b),
+        &[(5.0, -0.0848254150361870651547)],
+        4.0,
+    );
+    // d/dx 1/x = −1/x².
+    within_ulps(
+        "recip",
+        |x| x.recip(),
+        &[
+            (0.7, -2.04081632653061250384),
+            (-3.0, -0.111111111111111111111),
+        ],
+        2.0,
+    );
+}
+
+#[test]
+fn mul_add_carries_each_operand() {
+    // x·a + b: ∂/∂x = a, ∂/∂a = x, ∂/∂b = 1 (exact calculus; the values are
+    // exact binary fractions, so exact results are required).
+    let (a, b) = (ComplexStep::real(0.375_f64), ComplexStep::real(-1.25_f64));
+    let x = ComplexStep::real(2.5_f64);
+    assert_eq!(cs(|x| x.mul_add(a, b), 2.5), 0.375);
+    assert_eq!(cs(|a| x.mul_add(a, b), 0.375), 2.5);
+    assert_eq!(cs(|b| x.mul_add(a, b), -1.25), 1.0);
+    // x·x + b: 2x, both factors seeded at once.
+    assert_eq!(cs(|x| x.mul_add(x, b), 2.5), 5.0);
+    // The value keeps the fused rounding: 0.1·0.1 − 0.01 in one rounding
+    // is the rounding error of fl(0.1·0.1), not 0.
+    let t = ComplexStep::real(0.1_f64);
+    let fused = t.mul_add(t, ComplexStep::real(-(0.1_f64 * 0.1)));
+    assert_eq!(fused.re, 0.1_f64.mul_add(0.1, -(0.1 * 0.1)));
+    assert_ne!(fused.re, 0.0);
+}
+
+#[test]
+fn clamp_passes_the_derivative_of_the_selected_argument() {
+    // clamp(x, lo, hi) is x inside [lo, hi] and the bound outside (Rust's
+    // f64::clamp: "Returns max if self is greater than max, and min if self
+    // is less than min. Otherwise this returns self", quoted from memory).
+    // With the Martins et al. (2003) convention the whole selected argument
+    // is returned, so its derivative comes along.
+    let (lo, hi) = (ComplexStep::real(-1.0_f64), ComplexStep::real(2.0_f64));
+    assert_eq!(cs(|x| x.clamp(lo, hi), 0.5), 1.0);
+    assert_eq!(cs(|x| x.clamp(lo, hi), -3.0), 0.0);
+    assert_eq!(cs(|x| x.clamp(lo, hi), 7.0), 0.0);
+    // A seeded bound that is selected carries its derivative.
+    let x = ComplexStep::real(-3.0_f64);
+    assert_eq!(cs(|l| x.clamp(l, hi), -1.0), 1.0);
+    let x = ComplexStep::real(7.0_f64);
+    assert_eq!(cs(|h| x.clamp(lo, h), 2.0), 1.0);
+    // At a bound, x itself is returned (not strictly outside): slope 1.
+    assert_eq!(cs(|x| x.clamp(lo, hi), 2.0), 1.0);
+    assert_eq!(cs(|x| x.clamp(lo, hi), -1.0), 1.0);
+    // The value agrees with f64::clamp.
+    for x in [-3.0, -1.0, 0.5, 2.0, 7.0] {
+        assert_eq!(ComplexStep::real(x).clamp(lo, hi).re, x.clamp(-1.0, 2.0));
+    }
+}
+
+/// Spacing between subnormal f64 numbers, 2^−1074.
+const SUBNORMAL_SPACING: f64 = 4.940_656_458_412_465_4e-324;
+
+#[test]
+fn erf_derivative_at_large_arguments_dlmf_7_10_1() {
+    // erf′(x) = (2/√π) e^(−x²) (DLMF 7.10.1, n = 0), mpmath 1.3 at 40 digits
+    // (420 digits for the mpmath.diff cross-check).
+    // At 5 and 10 the value is far above the subnormal range and so is
+    // h·erf′ with h = 1e-20: a few ulps.
+    within_ulps(
+        "erf",
+        |x| x.erf(),
+        &[
+            (5.0, 1.56708665310173353082e-11),
+            (10.0, 4.19765623135441689009e-44),
+        ],
+        4.0,
+    );
+    // 10.3 is not a dyadic number, so x² is not exact in f64: rounding x²
+    // (≈ 106.09) costs up to half its ulp, 7e-15, as a relative error of
+    // e^(−x²) (up to ≈ 30 ulp). The rule splits x² exactly, so a few ulps
+    // here too.
+    let want = 9.50940784783604594157e-47;
+    within_ulps("erf", |x| x.erf(), &[(10.3, want)], 4.0);
+    // The check has teeth: the same formula with x² rounded is outside the
+    // tolerance (15 ulp when this was written).
+    let naive = std::f64::consts::FRAC_2_SQRT_PI * (-(10.3_f64 * 10.3)).exp();
+    assert!(ulps64(naive, want) > 4.0, "{}", ulps64(naive, want));
+
+    // At 26, e^(−676) ≈ 2.6e-294 does NOT underflow in f64 (the smallest
+    // normal number is 2.2e-308 ≈ e^(−708.4)), so the right answer is the
+    // normal number erf′(26) = 2.9470349932662695402e-294, not 0. But the
+    // imaginary part h·erf′ with the default h = 1e-20 is ≈ 2.9e-314, which
+    // is subnormal: it carries an absolute rounding of up to half the
+    // subnormal spacing, 2^−1075, i.e. ≈ 2.5e-304 in the derivative after
+    // dividing by h (8e-11 relative). So with the default step the result
+    // must be within that quantum (plus a few ulps); with a step of 1e-10
+    // h·erf′ ≈ 2.9e-304 is normal again and a few ulps are required.
+    let want26: f64 = 2.9470349932662695402e-294;
+    let d = cs(|x| x.erf(), 26.0);
+    // (Half of 2^−1074 is not representable; halve after dividing by h.)
+    let quantum = SUBNORMAL_SPACING / ComplexStep::<f64>::default_step() * 0.5;
+    let spacing = f64::from_bits(want26.to_bits() + 1) - want26;
+    println!(
+        "erf'(26) with h = 1e-20: {d:e}, off by {:e} (quantum {quantum:e})",
+        (d - want26).abs()
+    );
+    assert!(
+        (d - want26).abs() <= quantum + 4.0 * spacing,
+        "erf'(26) = {d:e}, want {want26:e}"
+    );
+    assert!(d > 0.0, "erf'(26) is a normal number, not 0");
+    let d = complex_step_derivative(|x: ComplexStep<f64>| x.erf(), 26.0, 1e-10);
+    assert!(
+        ulps64(d, want26) <= 4.0,
+        "erf'(26) with h = 1e-10 = {d:e}, {} ulp from {want26:e}",
+        ulps64(d, want26)
+    );
+
+    // At 28, erf′(28) = 3.67774189592733417324e-341 is below half the
+    // smallest subnormal (2^−1075 ≈ 2.5e-324): its correctly rounded f64
+    // value is 0, and 0 (not NaN, not a stray subnormal) is required.
+    assert_eq!(cs(|x| x.erf(), 28.0), 0.0);
+    assert_eq!(cs(|x| x.erf(), -28.0), 0.0);
+}
+
+#[test]
+fn tanh_derivative_in_saturation_dlmf_4_34_3() {
+    // tanh′ = sech² (DLMF 4.34.3), mpmath 1.3 at 40 digits (420 for the
+    // mpmath.diff cross-check at 400).
+    // At 20, sech² 20 = 1.69934170211663558369e-17 is a normal f64 and
+    // h·tanh′ ≈ 1.7e-37 is normal too: a few ulps. (1 − tanh² would give 0
+    // here, since tanh 20 rounds to 1 in f64.)
+    within_ulps(
+        "tanh",
+        |x| x.tanh(),
+        &[
+            (20.0, 1.69934170211663558369e-17),
+            (-20.0, 1.69934170211663558369e-17),
+        ],
+        4.0,
+    );
+    assert_eq!(
+        20.0_f64.tanh(),
+        1.0,
+        "why 1 − tanh² cannot be the reference"
+    );
+    // At 400, sech² 400 = 1.46714983367107488538e-347 is below half the
+    // smallest subnormal: its correctly rounded f64 value is 0, and the
+    // complex step must give exactly 0 (cosh 800 overflows in the
+    // denominator, which must not produce NaN).
+    assert_eq!(cs(|x| x.tanh(), 400.0), 0.0);
+    assert_eq!(cs(|x| x.tanh(), -400.0), 0.0);
+    assert_eq!(ComplexStep::seeded(400.0_f64, 1e-20).tanh().re, 1.0);
+}
+
+#[test]
+fn f32_rules_against_the_same_closed_forms() {
+    // The same closed forms, mpmath 1.3 at 40 digits, at the f32 value of
+    // the argument (0.7_f32 = 0.699999988079071044921875), written here
+    // with their 21 digits and rounded to f32 by the compiler. Tolerance:
+    // 2 f32 ulps (each rule is a handful of f32 operations).
+    let h = ComplexStep::<f32>::default_step();
+    let d32 =
+        |f: fn(ComplexStep<f32>) -> ComplexStep<f32>, x: f32| complex_step_derivative(f, x, h);
+    type Case = (
+        &'static str,
+        fn(ComplexStep<f32>) -> ComplexStep<f32>,
+        f32,
+        f32,
+    );
+    let cases: [Case; 7] = [
+        ("sinh", |x| x.sinh(), 0.7, 1.25516899658792069124),
+        ("asinh", |x| x.asinh(), 0.7, 0.819231925107096751662),
+        ("atanh", |x| x.atanh(), 0.5, 1.33333333333333333333),
+        ("exp2", |x| x.exp2(), 0.7, 1.12602090757050385779),
+        ("recip", |x| x.recip(), 0.7, -2.04081639604040384604),
+        // sech² 20 ≈ 1.7e-17 is a normal f32 (smallest 1.2e-38), and so is
+        // h·sech² 20 ≈ 1.7e-27.
+        ("tanh", |x| x.tanh(), 20.0, 1.69934170211663558369e-17),
+        // erf′(5) = (2/√π)e^(−25) (DLMF 7.10.1).
+        ("erf", |x| x.erf(), 5.0, 1.56708665310173353082e-11),
+    ];
+    for (name, f, x, want) in cases {
+        let got = d32(f, x);
+        let e = ulps32(got, want);
+        println!("f32 {name}'({x}) = {got:e}: {e} ulp");
+        assert!(
+            e <= 2.0,
+            "f32 {name}'({x}) = {got:e}, want {want:e} ({e} ulp)"
+        );
+    }
+    // sech² 400 underflows in f32 as in f64: exactly 0, no NaN.
+    assert_eq!(d32(|x| x.tanh(), 400.0), 0.0);
+}

@@ -315,11 +315,115 @@ fn rendered(report: &Report, style: &Style) -> String {
     String::from_utf8(out).unwrap()
 }
 
+// The table's specification, written out here independently of the
+// renderer: the columns in order; numbers with 4 significant digits in
+// scientific notation (`{:.3e}`), bounds and errors with 2 (`{:.1e}`), and
+// 0 printed as `0`; shapes and indices as `[2, 2]`; columns separated by
+// two spaces, numbers right-aligned, text left-aligned.
+
+const HEADERS: [&str; 14] = [
+    "#",
+    "tensor",
+    "role",
+    "shape",
+    "checked",
+    "bad",
+    "worst at",
+    "analytic",
+    "numeric",
+    "bound",
+    "abs err",
+    "rel err",
+    "verdict",
+    "diagnosis",
+];
+/// Columns that hold numbers (right-aligned).
+const NUMBER_COLUMNS: [usize; 8] = [0, 4, 5, 7, 8, 9, 10, 11];
+
+/// A value as the spec prints it: `{:.3e}`, 0 as `0`.
+fn sci3(x: f64) -> String {
+    if x == 0.0 {
+        "0".to_string()
+    } else {
+        format!("{x:.3e}")
+    }
+}
+
+/// A bound or error as the spec prints it: `{:.1e}`, 0 as `0`.
+fn sci1(x: f64) -> String {
+    if x == 0.0 {
+        "0".to_string()
+    } else {
+        format!("{x:.1e}")
+    }
+}
+
+fn bracketed(v: &[usize]) -> String {
+    let parts: Vec<String> = v.iter().map(usize::to_string).collect();
+    format!("[{}]", parts.join(", "))
+}
+
+/// The cells of row `rank` (0-based) computed from the report's own row
+/// data with the spec's formats.
+fn expected_cells(rank: usize, row: &plumbline::Row) -> Vec<String> {
+    let w = row.worst.as_ref().expect("every row has a worst element");
+    vec![
+        (rank + 1).to_string(),
+        row.name.clone(),
+        row.role.to_string(),
+        bracketed(&row.shape),
+        row.checked.to_string(),
+        row.failing.to_string(),
+        bracketed(w.index.as_slice()),
+        sci3(w.analytic),
+        sci3(w.numeric),
+        sci1(w.bound),
+        sci1(row.max_abs_error),
+        sci1(row.max_rel_error),
+        row.verdict.to_string(),
+        row.diagnosis
+            .as_ref()
+            .map(|d| d.to_string())
+            .unwrap_or_default(),
+    ]
+}
+
+/// The cells of a rendered line: runs of two or more spaces separate them.
+fn split_cells(line: &str) -> Vec<String> {
+    line.split("  ")
+        .map(str::trim)
+        .filter(|c| !c.is_empty())
+        .map(String::from)
+        .collect()
+}
+
+/// `short` is `full` with its middle cut out and replaced by `…`.
+fn is_middle_cut(short: &str, full: &str) -> bool {
+    let Some((head, tail)) = short.split_once('…') else {
+        return false;
+    };
+    !head.is_empty()
+        && !tail.is_empty()
+        && full.starts_with(head)
+        && full.ends_with(tail)
+        && short.chars().count() < full.chars().count()
+}
+
 #[test]
 fn a_width_limit_shortens_text_cells_in_the_middle_and_keeps_numbers() {
     let report = failing_report();
     let wide = rendered(&report, &Style::plain());
-    assert_eq!(wide, report.to_string());
+    let wide_lines: Vec<&str> = wide.lines().collect();
+    // Without a limit: the headers exactly, and every cell of every row as
+    // the spec formats the report's own data.
+    assert_eq!(split_cells(wide_lines[1]), HEADERS, "{wide}");
+    for (i, row) in report.rows.iter().enumerate() {
+        // (An empty diagnosis leaves no cell.)
+        let mut want = expected_cells(i, row);
+        want.retain(|c| !c.is_empty());
+        assert_eq!(split_cells(wide_lines[2 + i]), want, "{wide}");
+    }
+
     let longest = |s: &str| {
         s.lines()
             .skip(1)
@@ -336,22 +440,49 @@ fn a_width_limit_shortens_text_cells_in_the_middle_and_keeps_numbers() {
             width: Some(limit),
         },
     );
+    let lines: Vec<&str> = narrow.lines().collect();
     // Header and rows (not the title and footer lines) fit.
-    for line in narrow.lines().skip(1).take(4) {
+    for line in &lines[1..5] {
         assert!(
             line.chars().count() <= limit,
             "{line:?} is wider than {limit}"
         );
     }
-    assert!(narrow.contains('…'), "{narrow}");
-    // Numbers are never cut: every number of the wide table is still there.
-    let numbers = |s: &str| -> Vec<String> {
-        s.split_whitespace()
-            .filter(|w| w.contains("e-") || w.contains("e0"))
-            .map(String::from)
-            .collect()
-    };
-    assert_eq!(numbers(&wide), numbers(&narrow));
+    // The headers that remain are the spec's, in order, whole or cut in the
+    // middle.
+    let mut rest = HEADERS.iter();
+    for cell in split_cells(lines[1]) {
+        assert!(
+            rest.any(|h| *h == cell || is_middle_cut(&cell, h)),
+            "header {cell:?} out of order or unknown:\n{narrow}"
+        );
+    }
+    for (i, row) in report.rows.iter().enumerate() {
+        let cells = split_cells(lines[2 + i]);
+        let want = expected_cells(i, row);
+        // The tensor name is cut in the middle, never at an end.
+        assert!(
+            is_middle_cut(&cells[1], &row.name),
+            "{:?} is not {:?} cut in the middle:\n{narrow}",
+            cells[1],
+            row.name
+        );
+        // Numbers are never cut: the worst element's values appear whole.
+        for k in [7, 8] {
+            assert!(
+                cells.contains(&want[k]),
+                "{} {:?} missing from {cells:?}",
+                HEADERS[k],
+                want[k]
+            );
+        }
+        // And any error column still shown holds the spec's figure.
+        for k in [9, 10, 11] {
+            if split_cells(lines[1]).iter().any(|h| h == HEADERS[k]) {
+                assert!(cells.contains(&want[k]), "{} in {cells:?}", HEADERS[k]);
+            }
+        }
+    }
 }
 
 #[test]
@@ -389,36 +520,45 @@ fn exact_text_at_a_width() {
             width: Some(130),
         },
     );
-    // The rows and header only: the bounds' last digits depend on rounding.
-    let table: Vec<String> = text
-        .lines()
-        .skip(1)
-        .take(4)
-        .map(|l| {
-            l.split("  bound")
-                .next()
-                .unwrap_or(l)
-                .chars()
-                .take(76)
-                .collect()
+    // The expected table, built here: the names as the 130-column table
+    // shortens them (text), every other cell from the report's own rows
+    // with the spec's formats, laid out by the spec (widths = widest cell,
+    // numbers right-aligned, text left-aligned, two spaces between columns,
+    // no trailing spaces).
+    let names = ["apiary.n…score.w", "apiary.n…eadings", "apiary.n…score.b"];
+    let mut table: Vec<Vec<String>> = vec![HEADERS.iter().map(|h| h.to_string()).collect()];
+    for (i, row) in report.rows.iter().enumerate() {
+        let mut cells = expected_cells(i, row);
+        cells[1] = names[i].to_string();
+        table.push(cells);
+    }
+    let widths: Vec<usize> = (0..HEADERS.len())
+        .map(|k| table.iter().map(|r| r[k].chars().count()).max().unwrap())
+        .collect();
+    let expected: Vec<String> = table
+        .iter()
+        .map(|cells| {
+            let line: Vec<String> = cells
+                .iter()
+                .enumerate()
+                .map(|(k, c)| {
+                    let pad = " ".repeat(widths[k] - c.chars().count());
+                    if NUMBER_COLUMNS.contains(&k) {
+                        format!("{pad}{c}")
+                    } else {
+                        format!("{c}{pad}")
+                    }
+                })
+                .collect();
+            line.join("  ").trim_end().to_string()
         })
         .collect();
-    assert_eq!(
-        table,
-        [
-            "#  tensor            role   shape   checked  bad  worst at   analytic    numeric",
-            "1  apiary.n…score.w  param  [2, 2]        4    4  [0, 0]     6.526e-1  -6.526e-1",
-            "2  apiary.n…eadings  input  [2, 2]        4    0  [1, 1]     4.811e-1   4.811e-1",
-            "3  apiary.n…score.b  param  [2]           2    0  [1]       -3.618e-2  -3.618e-2",
-        ]
-        .map(|s| s.chars().take(76).collect::<String>()),
-        "{text}"
-    );
-    assert!(text
-        .lines()
-        .skip(1)
-        .take(4)
-        .all(|l| l.chars().count() <= 130));
+    let got: Vec<&str> = text.lines().skip(1).take(4).collect();
+    assert_eq!(got, expected, "{text}");
+    assert!(got.iter().all(|l| l.chars().count() <= 130));
+    // The rows are the report's, worst first: the failing `w` leads.
+    assert_eq!(report.rows[0].name, "apiary.north_field.hive_score.w");
+    assert_eq!(report.rows[0].verdict.to_string(), "FAIL");
 }
 
 #[test]

@@ -15,7 +15,7 @@ use plumbline::{Args, Audit, GenericForward, Gradients, Layer, Real, Scalar, Sig
 const EPS: f64 = 1e-5;
 
 /// Layer norm over the last axis, no affine, biased variance:
-/// ŷ = (x − μ)/√(var + eps). Backward (derived, METHODS-style closed form):
+/// ŷ = (x − μ)/√(var + eps). Backward (derived by hand, closed form):
 /// dx = (g − mean(g) − ŷ·mean(g⊙ŷ)) / √(var + eps).
 struct LayerNorm<R> {
     /// Leave eps out of the backward's σ (the subtle bug).

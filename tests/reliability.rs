@@ -19,14 +19,18 @@ struct StationSoftmax;
 impl Layer for StationSoftmax {
     type Real = f64;
     fn signature(&self) -> Signature {
-        Signature::new().input("z", "station").output("p", "station")
+        Signature::new()
+            .input("z", "station")
+            .output("p", "station")
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
-        // VJP of softmax: p ⊙ (g − ⟨g, p⟩) (METHODS.md §8).
+        // VJP of softmax: p ⊙ (g − ⟨g, p⟩), from ∂pᵢ/∂zⱼ = pᵢ(δᵢⱼ − pⱼ).
         let p = &self.forward_generic(a)[0];
         let g = &up[0];
         let dot: f64 = p.data().iter().zip(g.data()).map(|(p, g)| p * g).sum();
-        Gradients::from(vec![Tensor::from_fn(p.shape().to_vec(), |ix| p[ix] * (g[ix] - dot))])
+        Gradients::from(vec![Tensor::from_fn(p.shape().to_vec(), |ix| {
+            p[ix] * (g[ix] - dot)
+        })])
     }
 }
 
@@ -114,7 +118,10 @@ impl Layer for Humidity {
         Signature::new().input("rh", "n").output("y", "n")
     }
     fn backward(&self, _: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
-        assert!(self.panics != "backward", "humidity backward: not implemented yet");
+        assert!(
+            self.panics != "backward",
+            "humidity backward: not implemented yet"
+        );
         Gradients::from(vec![up[0].map(|g| 2.0 * g)])
     }
 }
@@ -179,7 +186,10 @@ fn masked_logits_at_minus_infinity_return_promptly_under_every_scheme() {
     let z = vector(&[f64::NEG_INFINITY, 0.3, -1.2, f64::NEG_INFINITY, 2.0]);
     let args = Args::new(vec![z], vec![]);
     for scheme in schemes() {
-        let r = Audit::new().scheme(scheme).run(&StationSoftmax, &args).unwrap();
+        let r = Audit::new()
+            .scheme(scheme)
+            .run(&StationSoftmax, &args)
+            .unwrap();
         assert!(r.passed(), "{scheme}: {r}");
         let row = r.row("z").unwrap();
         assert_eq!(row.unchecked, 2, "{r}");
@@ -201,7 +211,10 @@ fn a_nan_input_fails_the_audit_without_hanging() {
     let z = vector(&[0.1, f64::NAN, 0.4]);
     let args = Args::new(vec![z], vec![]);
     for scheme in schemes() {
-        let r = Audit::new().scheme(scheme).run(&StationSoftmax, &args).unwrap();
+        let r = Audit::new()
+            .scheme(scheme)
+            .run(&StationSoftmax, &args)
+            .unwrap();
         // NaN flows into every output: the forward is not finite there.
         assert!(!r.passed(), "{scheme}: {r}");
         let d = r.rows[0].diagnosis.as_ref().unwrap().to_string();
@@ -216,13 +229,17 @@ fn an_f32_forward_that_overflows_fails_even_though_f64_would_not() {
     // k·x = 90 > ln(f32::MAX) ≈ 88.72: the f32 forward is +∞ at the point,
     // while the f64 reference is finite. The row fails.
     let x = Tensor::new(vec![2], vec![1.0_f32, 9.0]).unwrap();
-    let r = Audit::new().run(&Warming::<f32>::new(10.0), &Args::new(vec![x], vec![])).unwrap();
+    let r = Audit::new()
+        .run(&Warming::<f32>::new(10.0), &Args::new(vec![x], vec![]))
+        .unwrap();
     assert!(!r.passed(), "{r}");
     let d = r.rows[0].diagnosis.as_ref().unwrap().to_string();
     assert_eq!(d, "non-finite in forward output `y` at [1] (in f32)");
     // The same values in f64 pass.
     let x = Tensor::new(vec![2], vec![1.0_f64, 9.0]).unwrap();
-    let r = Audit::new().run(&Warming::<f64>::new(10.0), &Args::new(vec![x], vec![])).unwrap();
+    let r = Audit::new()
+        .run(&Warming::<f64>::new(10.0), &Args::new(vec![x], vec![]))
+        .unwrap();
     assert!(r.passed(), "{r}");
 }
 
@@ -258,7 +275,10 @@ fn a_nan_in_an_element_sampling_skipped_still_fails() {
     let skipped = (0..200).find(|j| !checked.contains(j)).unwrap();
     let r = audit.run(&NanAt(skipped), &args).unwrap();
     assert_eq!(r.rows[0].checked, 5);
-    assert!(!r.passed(), "a NaN at {skipped} (not sampled) must fail: {r}");
+    assert!(
+        !r.passed(),
+        "a NaN at {skipped} (not sampled) must fail: {r}"
+    );
     let d = r.rows[0].diagnosis.as_ref().unwrap().to_string();
     assert_eq!(d, format!("non-finite in backward at [{skipped}]"));
 }
@@ -285,7 +305,11 @@ fn settings_that_would_silence_the_audit_are_refused_naming_the_setting() {
         (Audit::new().margin(1e300), "margin", "1e300"),
         (Audit::new().max_absolute(-1e-9), "max_absolute", "-1e-9"),
         (Audit::new().max_absolute(f64::NAN), "max_absolute", "NaN"),
-        (Audit::new().max_absolute(f64::INFINITY), "max_absolute", "inf"),
+        (
+            Audit::new().max_absolute(f64::INFINITY),
+            "max_absolute",
+            "inf",
+        ),
         (Audit::new().max_relative(f64::NAN), "max_relative", "NaN"),
         (Audit::new().max_relative(1.0), "max_relative", "1"),
         (Audit::new().max_relative(-0.1), "max_relative", "-0.1"),
@@ -304,7 +328,12 @@ fn settings_that_would_silence_the_audit_are_refused_naming_the_setting() {
 fn the_environment_gets_the_same_rules_and_names_the_variable() {
     use plumbline::env::Environment;
     let env = |pairs: &'static [(&'static str, &'static str)]| {
-        Environment::from_lookup(move |n| pairs.iter().find(|(k, _)| *k == n).map(|(_, v)| v.to_string()))
+        Environment::from_lookup(move |n| {
+            pairs
+                .iter()
+                .find(|(k, _)| *k == n)
+                .map(|(_, v)| v.to_string())
+        })
     };
     for (var, value) in [
         ("PLUMBLINE_MARGIN", "inf"),
@@ -369,7 +398,11 @@ impl Layer for CentredFrost {
 impl GenericForward for CentredFrost {
     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
         let x = a.input(0);
-        let mean = x.data().iter().map(|v| v.to_f64().unwrap_or(f64::NAN)).sum::<f64>()
+        let mean = x
+            .data()
+            .iter()
+            .map(|v| v.to_f64().unwrap_or(f64::NAN))
+            .sum::<f64>()
             / x.len() as f64;
         let m = T::from(mean).unwrap_or_else(T::nan);
         vec![x.map(|v| (v - m) * (v - m))]
@@ -385,7 +418,10 @@ fn a_generic_forward_off_the_scalar_path_is_caught_and_noted() {
     let r = Audit::new().run(&right, &args).unwrap();
     assert!(r.passed(), "the correct backward passes: {r}");
     assert_eq!(r.rows[0].scheme, Scheme::Ridders, "{r}");
-    assert!(r.notes.iter().any(|n| n.contains("leaves the Scalar path")), "{r}");
+    assert!(
+        r.notes.iter().any(|n| n.contains("leaves the Scalar path")),
+        "{r}"
+    );
     let wrong = CentredFrost {
         backward_forgets_the_mean: true,
     };
@@ -400,10 +436,15 @@ fn a_forward_that_panics_at_a_moved_point_is_an_error_saying_where() {
     // rh = 1.0 exactly: the forward is fine there, but real differences
     // move it above 1, where the forward's assertion fires.
     let args = Args::new(vec![vector(&[0.25, 1.0])], vec![]);
-    let err = Audit::new().run(&Humidity { panics: "forward" }, &args).unwrap_err();
+    let err = Audit::new()
+        .run(&Humidity { panics: "forward" }, &args)
+        .unwrap_err();
     let msg = err.to_string();
     assert!(matches!(err, Error::LayerPanicked { .. }), "{msg}");
-    assert!(msg.starts_with("layer `Humidity` panicked in forward"), "{msg}");
+    assert!(
+        msg.starts_with("layer `Humidity` panicked in forward"),
+        "{msg}"
+    );
     assert!(msg.contains("while `rh` [1] was moved to 1."), "{msg}");
     assert!(msg.contains("relative humidity 1."), "{msg}");
     assert!(msg.ends_with("above 1"), "{msg}");
@@ -412,14 +453,28 @@ fn a_forward_that_panics_at_a_moved_point_is_an_error_saying_where() {
 #[test]
 fn forwards_and_backwards_that_always_panic_are_errors_naming_the_call() {
     let args = Args::new(vec![vector(&[0.25, 0.5])], vec![]);
-    let msg = Audit::new().run(&Humidity { panics: "always" }, &args).unwrap_err().to_string();
-    assert_eq!(msg, "layer `Humidity` panicked in forward: humidity forward: sensor offline");
-    let msg = Audit::new().run(&Humidity { panics: "backward" }, &args).unwrap_err().to_string();
-    assert_eq!(msg, "layer `Humidity` panicked in backward: humidity backward: not implemented yet");
+    let msg = Audit::new()
+        .run(&Humidity { panics: "always" }, &args)
+        .unwrap_err()
+        .to_string();
+    assert_eq!(
+        msg,
+        "layer `Humidity` panicked in forward: humidity forward: sensor offline"
+    );
+    let msg = Audit::new()
+        .run(&Humidity { panics: "backward" }, &args)
+        .unwrap_err()
+        .to_string();
+    assert_eq!(
+        msg,
+        "layer `Humidity` panicked in backward: humidity backward: not implemented yet"
+    );
 }
 
 #[test]
-#[should_panic(expected = "assert_backward!: layer `Humidity` panicked in forward while `rh` [1] was moved to")]
+#[should_panic(
+    expected = "assert_backward!: layer `Humidity` panicked in forward while `rh` [1] was moved to"
+)]
 fn the_macro_shows_the_panic_context() {
     let args = Args::new(vec![vector(&[0.25, 1.0])], vec![]);
     assert_backward!(Humidity { panics: "forward" }, &args);
@@ -430,7 +485,10 @@ fn check_layer_turns_a_panic_into_a_failing_case_with_its_context() {
     let args = Args::new(vec![vector(&[0.25, 1.0])], vec![]);
     let outcome = plumbline::check_layer(&Humidity { panics: "forward" }, &args);
     let msg = outcome.unwrap_err().to_string();
-    assert!(msg.contains("panicked in forward while `rh` [1] was moved to"), "{msg}");
+    assert!(
+        msg.contains("panicked in forward while `rh` [1] was moved to"),
+        "{msg}"
+    );
 }
 
 // --------------------------------------------- 6. extra gradients reported
@@ -441,10 +499,22 @@ fn a_gradient_for_a_fixed_input_is_an_error_not_a_shifted_row() {
         vec![vector(&[3.0, 4.0]), vector(&[0.8, 1.2])],
         vec![Tensor::scalar(12.5)],
     );
-    let r = Audit::new().run(&LoadCell { extra_gradient: false }, &args).unwrap();
+    let r = Audit::new()
+        .run(
+            &LoadCell {
+                extra_gradient: false,
+            },
+            &args,
+        )
+        .unwrap();
     assert!(r.passed(), "{r}");
     let msg = Audit::new()
-        .run(&LoadCell { extra_gradient: true }, &args)
+        .run(
+            &LoadCell {
+                extra_gradient: true,
+            },
+            &args,
+        )
         .unwrap_err()
         .to_string();
     assert_eq!(
@@ -461,7 +531,10 @@ struct WideGate;
 impl Layer for WideGate {
     type Real = f32;
     fn signature(&self) -> Signature {
-        Signature::new().input("x", "n").param("s", "n").output("y", "n")
+        Signature::new()
+            .input("x", "n")
+            .param("s", "n")
+            .output("y", "n")
     }
     fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
         let (x, s, g) = (a.input(0), a.param(0), &up[0]);
@@ -495,7 +568,10 @@ fn an_audit_over_budget_refuses_before_it_starts_and_says_what_to_set() {
         other => panic!("{other:?}"),
     }
     let msg = err.to_string();
-    assert!(msg.contains(".max_elements(..)") && msg.contains("PLUMBLINE_MAX_EVALUATIONS"), "{msg}");
+    assert!(
+        msg.contains(".max_elements(..)") && msg.contains("PLUMBLINE_MAX_EVALUATIONS"),
+        "{msg}"
+    );
     // A sample fits the budget.
     let r = Audit::new().max_elements(50).run(&WideGate, &args).unwrap();
     assert!(r.passed(), "{r}");
@@ -512,7 +588,10 @@ fn progress_reaches_the_callback_and_counts_every_element() {
         assert!(p.done <= p.total);
         l2.store(p.done * 1000 + p.total, Ordering::Relaxed);
     });
-    let args = Args::new(vec![vector(&[0.1, 0.2, 0.3])], vec![vector(&[1.0, 2.0, 3.0])]);
+    let args = Args::new(
+        vec![vector(&[0.1, 0.2, 0.3])],
+        vec![vector(&[1.0, 2.0, 3.0])],
+    );
     let r = audit.run(&WideGate32, &args).unwrap();
     assert!(r.passed(), "{r}");
     assert_eq!(seen.load(Ordering::Relaxed), 6);
@@ -550,7 +629,10 @@ fn assert_passed_suggests_only_what_applies_to_audit_run() {
     let r = Audit::new().run(&NanAt(1), &args).unwrap();
     let msg = plumbline::render::failure_message(&r);
     assert!(msg.contains("`.seed("), "{msg}");
-    assert!(!msg.contains("PLUMBLINE_"), "Audit::run reads no variable: {msg}");
+    assert!(
+        !msg.contains("PLUMBLINE_"),
+        "Audit::run reads no variable: {msg}"
+    );
 }
 
 #[test]
@@ -558,7 +640,10 @@ fn a_shape_whose_size_overflows_is_an_error() {
     let e = Tensor::new(vec![usize::MAX, 3], vec![0.0_f64]).unwrap_err();
     assert_eq!(
         e.to_string(),
-        format!("a tensor of shape [{}, 3] has more elements than usize can count", usize::MAX)
+        format!(
+            "a tensor of shape [{}, 3] has more elements than usize can count",
+            usize::MAX
+        )
     );
 }
 
@@ -575,7 +660,8 @@ fn a_json_report_with_nan_and_infinity_reads_back_identically() {
     assert!(back.rows[0].max_abs_error.is_nan() && back.rows[0].max_rel_error.is_nan());
     let key = "\"max_abs_error\": \"NaN\"";
     assert!(json.contains(key), "{json}");
-    let inf: Report = serde_json::from_str(&json.replacen(key, "\"max_abs_error\": \"-inf\"", 1)).unwrap();
+    let inf: Report =
+        serde_json::from_str(&json.replacen(key, "\"max_abs_error\": \"-inf\"", 1)).unwrap();
     assert_eq!(inf.rows[0].max_abs_error, f64::NEG_INFINITY);
 }
 
@@ -587,9 +673,15 @@ fn subnormal_inputs_raise_no_false_alarm() {
     // 1e-310 is, for them, 0 plus a rounding error.
     let args = Args::new(vec![vector(&[1e-310, -3e-310, 0.4, 5e-324])], vec![]);
     for scheme in schemes() {
-        let r = Audit::new().scheme(scheme).run(&StationSoftmax, &args).unwrap();
+        let r = Audit::new()
+            .scheme(scheme)
+            .run(&StationSoftmax, &args)
+            .unwrap();
         assert!(r.passed(), "{scheme}: {r}");
-        let r = Audit::new().scheme(scheme).run(&Warming::<f64>::new(1.5), &args).unwrap();
+        let r = Audit::new()
+            .scheme(scheme)
+            .run(&Warming::<f64>::new(1.5), &args)
+            .unwrap();
         assert!(r.passed(), "{scheme}: {r}");
     }
     let r = Audit::new().run(&PlainStationSoftmax, &args).unwrap();

@@ -15,7 +15,9 @@ fn vector<R: Real>(v: &[f64]) -> Tensor<R> {
 
 /// Points in [lo, hi], evenly spread, for sweeps.
 fn spread(lo: f64, hi: f64, n: usize) -> Vec<f64> {
-    (0..n).map(|k| lo + (hi - lo) * (k as f64 + 0.5) / n as f64).collect()
+    (0..n)
+        .map(|k| lo + (hi - lo) * (k as f64 + 0.5) / n as f64)
+        .collect()
 }
 
 // ------------------------------------ 1. a forward that loses precision
@@ -43,7 +45,9 @@ fn erf_series<T: Scalar>(x: T) -> T {
 impl Layer for FrostProbability {
     type Real = f64;
     fn signature(&self) -> Signature {
-        Signature::new().input("x", "station").output("p", "station")
+        Signature::new()
+            .input("x", "station")
+            .output("p", "station")
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         let x = a.input(0);
@@ -90,15 +94,26 @@ impl GenericForward for CalmHive {
 #[test]
 fn a_forward_that_cancels_on_its_own_is_not_a_false_alarm() {
     // The cancelling ranges: |x| in 2..3 for the series, u in −4..−2.5.
-    let xs = [spread(-3.0, -2.0, 40), spread(2.0, 3.0, 40), vec![2.5, -2.5]].concat();
+    let xs = [
+        spread(-3.0, -2.0, 40),
+        spread(2.0, 3.0, 40),
+        vec![2.5, -2.5],
+    ]
+    .concat();
     for (k, chunk) in xs.chunks(4).enumerate() {
         let args = Args::new(vec![vector::<f64>(chunk)], vec![]);
-        let r = Audit::new().seed(k as u64).run(&FrostProbability { factor: 1.0 }, &args).unwrap();
+        let r = Audit::new()
+            .seed(k as u64)
+            .run(&FrostProbability { factor: 1.0 }, &args)
+            .unwrap();
         assert!(r.passed(), "{chunk:?}\n{r}");
     }
     for (k, chunk) in spread(-4.0, -2.5, 60).chunks(4).enumerate() {
         let args = Args::new(vec![vector::<f64>(chunk)], vec![]);
-        let r = Audit::new().seed(k as u64).run(&CalmHive { factor: 1.0 }, &args).unwrap();
+        let r = Audit::new()
+            .seed(k as u64)
+            .run(&CalmHive { factor: 1.0 }, &args)
+            .unwrap();
         assert!(r.passed(), "{chunk:?}\n{r}");
     }
 }
@@ -109,10 +124,14 @@ fn and_a_small_error_there_is_still_caught() {
     // there (about 1e-13 relative for the series near 2.5): an error of
     // 1e-8 is far above it.
     let args = Args::new(vec![vector::<f64>(&[2.4, -2.6, 0.3])], vec![]);
-    let r = Audit::new().run(&FrostProbability { factor: 1.0 + 1e-8 }, &args).unwrap();
+    let r = Audit::new()
+        .run(&FrostProbability { factor: 1.0 + 1e-8 }, &args)
+        .unwrap();
     assert!(!r.passed(), "{r}");
     let args = Args::new(vec![vector::<f64>(&[-3.2, -2.9, 0.1])], vec![]);
-    let r = Audit::new().run(&CalmHive { factor: 1.0 + 1e-8 }, &args).unwrap();
+    let r = Audit::new()
+        .run(&CalmHive { factor: 1.0 + 1e-8 }, &args)
+        .unwrap();
     assert!(!r.passed(), "{r}");
 }
 
@@ -133,7 +152,11 @@ impl Layer for FrostClips {
         Gradients::from(vec![Tensor::from_fn(vec![4], |ix| {
             let v = x[ix];
             let slope = if ix[0] < 2 {
-                if v > 0.0 { 1.0 } else { 0.0 }
+                if v > 0.0 {
+                    1.0
+                } else {
+                    0.0
+                }
             } else if (-1.0..=1.0).contains(&v) {
                 1.0
             } else {
@@ -167,7 +190,11 @@ fn independent_kinks_moved_together_are_not_a_shared_gradient() {
     let args = Args::new(vec![vector::<f64>(&[0.0, 0.0, -1.0, 1.0])], vec![]);
     for seed in 0..64 {
         for scheme in [Scheme::ComplexStep, Scheme::Ridders] {
-            let r = Audit::new().seed(seed).scheme(scheme).run(&FrostClips, &args).unwrap();
+            let r = Audit::new()
+                .seed(seed)
+                .scheme(scheme)
+                .run(&FrostClips, &args)
+                .unwrap();
             assert!(r.passed(), "seed {seed} {scheme}: {r}");
             assert_eq!(r.rows[0].kinks, 4, "{r}");
         }
@@ -189,7 +216,11 @@ impl Layer for HivePairMax {
         let x = a.input(0);
         Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |ix| {
             let (l, r) = (x[[ix[0], 0]], x[[ix[0], 1]]);
-            let wins = if ix[1] == 0 { l >= r } else { r > l || (self.both && r == l) };
+            let wins = if ix[1] == 0 {
+                l >= r
+            } else {
+                r > l || (self.both && r == l)
+            };
             if wins {
                 up[0][[ix[0]]]
             } else {
@@ -202,7 +233,9 @@ impl Layer for HivePairMax {
 impl Forward for HivePairMax {
     fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
         let x = a.input(0);
-        vec![Tensor::from_fn(vec![x.shape()[0]], |ix| x[[ix[0], 0]].max(x[[ix[0], 1]]))]
+        vec![Tensor::from_fn(vec![x.shape()[0]], |ix| {
+            x[[ix[0], 0]].max(x[[ix[0], 1]])
+        })]
     }
 }
 
@@ -211,9 +244,15 @@ fn ties_of_one_max_still_share_one_gradient() {
     let x = Tensor::new(vec![3, 2], vec![0.5_f32, 0.5, -0.25, 0.75, 1.0, 1.0]).unwrap();
     let args = Args::new(vec![x], vec![]);
     for seed in 0..16 {
-        let r = Audit::new().seed(seed).run(&HivePairMax { both: false }, &args).unwrap();
+        let r = Audit::new()
+            .seed(seed)
+            .run(&HivePairMax { both: false }, &args)
+            .unwrap();
         assert!(r.passed(), "seed {seed}: {r}");
-        let r = Audit::new().seed(seed).run(&HivePairMax { both: true }, &args).unwrap();
+        let r = Audit::new()
+            .seed(seed)
+            .run(&HivePairMax { both: true }, &args)
+            .unwrap();
         assert!(
             matches!(r.rows[0].diagnosis, Some(Diagnosis::SharedKink { .. })),
             "seed {seed}: {r}"
@@ -245,7 +284,11 @@ impl Layer for AwkwardStation {
                 2 => 1e-6,
                 _ => 2.0 * v,
             };
-            let d = if self.wrong_at == Some(ix[0]) { 1.25 * d } else { d };
+            let d = if self.wrong_at == Some(ix[0]) {
+                1.25 * d
+            } else {
+                d
+            };
             d * up[0][ix]
         })])
     }
@@ -271,8 +314,14 @@ fn plain_f32_layers_with_zero_tiny_and_curved_gradients_raise_no_alarm() {
     for k in 0..200 {
         let t = k as f64 / 200.0;
         let x0 = if k % 5 == 0 { 0.0 } else { t - 0.5 };
-        let args = Args::new(vec![vector::<f32>(&[x0, 0.9 * t - 0.4, 2.0 * t - 1.0, 0.7 - t])], vec![]);
-        let r = Audit::new().seed(k).run(&AwkwardStation { wrong_at: None }, &args).unwrap();
+        let args = Args::new(
+            vec![vector::<f32>(&[x0, 0.9 * t - 0.4, 2.0 * t - 1.0, 0.7 - t])],
+            vec![],
+        );
+        let r = Audit::new()
+            .seed(k)
+            .run(&AwkwardStation { wrong_at: None }, &args)
+            .unwrap();
         assert!(r.passed(), "case {k}: {r}");
     }
 }
@@ -280,7 +329,9 @@ fn plain_f32_layers_with_zero_tiny_and_curved_gradients_raise_no_alarm() {
 #[test]
 fn a_wrong_element_with_a_wide_reference_is_the_one_the_table_points_at() {
     let args = Args::new(vec![vector::<f32>(&[0.3, 0.21, -0.4, 0.6])], vec![]);
-    let r = Audit::new().run(&AwkwardStation { wrong_at: Some(1) }, &args).unwrap();
+    let r = Audit::new()
+        .run(&AwkwardStation { wrong_at: Some(1) }, &args)
+        .unwrap();
     assert!(!r.passed(), "{r}");
     let row = &r.rows[0];
     assert_eq!(row.worst.as_ref().unwrap().index.as_slice(), &[1], "{r}");
@@ -296,20 +347,29 @@ struct EdgeOfDomain;
 impl Layer for EdgeOfDomain {
     type Real = f64;
     fn signature(&self) -> Signature {
-        Signature::new().input("p", "n").input("h", "n").output("lnp", "n").output("gap", "n")
+        Signature::new()
+            .input("p", "n")
+            .input("h", "n")
+            .output("lnp", "n")
+            .output("gap", "n")
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         let (p, h) = (a.input(0), a.input(1));
         Gradients::from(vec![
             Tensor::from_fn(p.shape().to_vec(), |ix| up[0][ix] / p[ix]),
-            Tensor::from_fn(h.shape().to_vec(), |ix| -0.5 * up[1][ix] / (1.0 - h[ix]).sqrt()),
+            Tensor::from_fn(h.shape().to_vec(), |ix| {
+                -0.5 * up[1][ix] / (1.0 - h[ix]).sqrt()
+            }),
         ])
     }
 }
 
 impl Forward for EdgeOfDomain {
     fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> {
-        vec![a.input(0).map(f64::ln), a.input(1).map(|h| (1.0 - h).sqrt())]
+        vec![
+            a.input(0).map(f64::ln),
+            a.input(1).map(|h| (1.0 - h).sqrt()),
+        ]
     }
 }
 
@@ -320,10 +380,16 @@ fn steps_stay_where_the_forward_is_finite() {
     let hs = [0.9999999, 0.99999, 0.999, 0.99, 0.9];
     for scheme in [Scheme::Ridders, Scheme::Central] {
         let args = Args::new(vec![vector::<f64>(&ps), vector::<f64>(&hs)], vec![]);
-        let r = Audit::new().scheme(scheme).run(&EdgeOfDomain, &args).unwrap();
+        let r = Audit::new()
+            .scheme(scheme)
+            .run(&EdgeOfDomain, &args)
+            .unwrap();
         assert!(r.passed(), "{scheme}: {r}");
         for row in &r.rows {
-            assert!(row.elements.iter().all(|e| e.bound.is_finite()), "{scheme}: {r}");
+            assert!(
+                row.elements.iter().all(|e| e.bound.is_finite()),
+                "{scheme}: {r}"
+            );
         }
     }
 }
@@ -374,7 +440,9 @@ impl Layer for Bending {
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         let x = a.input(0);
-        Gradients::from(vec![Tensor::from_fn(vec![4], |ix| derivative(ix[0], x[ix]) * up[0][ix])])
+        Gradients::from(vec![Tensor::from_fn(vec![4], |ix| {
+            derivative(ix[0], x[ix]) * up[0][ix]
+        })])
     }
 }
 
@@ -406,7 +474,9 @@ fn derivative(k: usize, v: f64) -> f64 {
 
 #[test]
 fn the_complex_step_scales_with_the_element_from_1e_300_to_1e300() {
-    for e in [-300, -250, -150, -100, -40, -20, -12, -8, -3, 0, 3, 8, 20, 40, 100, 150] {
+    for e in [
+        -300, -250, -150, -100, -40, -20, -12, -8, -3, 0, 3, 8, 20, 40, 100, 150,
+    ] {
         let v = 1.7 * 10f64.powi(e);
         // 1/x² overflows below 1e-154 and underflows above 1e154: skip it
         // there (its derivative is not a finite f64).
@@ -426,7 +496,10 @@ fn the_complex_step_scales_with_the_element_from_1e_300_to_1e300() {
             );
         }
         // Not a kink anywhere: these are smooth points.
-        assert!(r.rows[0].elements.iter().all(|e| e.status == ElementStatus::Agrees));
+        assert!(r.rows[0]
+            .elements
+            .iter()
+            .all(|e| e.status == ElementStatus::Agrees));
     }
 }
 
@@ -446,11 +519,17 @@ const SOFT_EPS: f64 = 1e-8;
 impl Layer for SoftSign {
     type Real = f64;
     fn signature(&self) -> Signature {
-        Signature::new().input("x", "station").output("y", "station")
+        Signature::new()
+            .input("x", "station")
+            .output("y", "station")
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         // y = x / √(x² + ε), so ∂y/∂x = 1/√s − x²/s^(3/2) with s = x² + ε.
-        let eps = if self.wrong_eps { 0.999 * SOFT_EPS } else { SOFT_EPS };
+        let eps = if self.wrong_eps {
+            0.999 * SOFT_EPS
+        } else {
+            SOFT_EPS
+        };
         let x = a.input(0);
         Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |ix| {
             let v = x[ix];
@@ -470,9 +549,13 @@ impl GenericForward for SoftSign {
 #[test]
 fn a_tiny_consistent_mismatch_is_named_as_such() {
     let args = Args::new(vec![vector::<f64>(&[1e-4, 2e-4, -1.5e-4, 3e-4])], vec![]);
-    let r = Audit::new().run(&SoftSign { wrong_eps: false }, &args).unwrap();
+    let r = Audit::new()
+        .run(&SoftSign { wrong_eps: false }, &args)
+        .unwrap();
     assert!(r.passed(), "{r}");
-    let r = Audit::new().run(&SoftSign { wrong_eps: true }, &args).unwrap();
+    let r = Audit::new()
+        .run(&SoftSign { wrong_eps: true }, &args)
+        .unwrap();
     assert!(!r.passed(), "{r}");
     match &r.rows[0].diagnosis {
         Some(Diagnosis::SmallMismatch { relative, .. }) => assert!(*relative < 1e-3, "{r}"),

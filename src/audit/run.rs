@@ -152,6 +152,7 @@ impl Audit {
                 .then(b.max_rel_error.total_cmp(&a.max_rel_error))
         });
         let forward_evals = engine.evals + 2;
+        let backward_evals = engine.backward_evals + 2;
         let reference_precision = engine.precision_name().to_string();
         drop(engine);
         Ok(Report {
@@ -160,7 +161,7 @@ impl Audit {
             rows,
             notes,
             forward_evals,
-            backward_evals: 2,
+            backward_evals,
             precision: L::Real::NAME.to_string(),
             reference_precision,
             tolerance: self.tolerance.clone(),

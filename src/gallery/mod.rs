@@ -28,7 +28,7 @@
 //! | GELU (erf form) | [`Gelu`](crate::gallery::Gelu) | `f32` only | [`GeluBug`](crate::gallery::GeluBug) |
 //! | residual block `x + gelu(x·wᵀ + b)` | [`Residual`](crate::gallery::Residual) | yes | [`ResidualBug`](crate::gallery::ResidualBug) |
 //!
-//! Generic layers implement [`GenericLayer`](crate::GenericLayer) for
+//! Generic layers implement [`GenericForward`](crate::GenericForward) for
 //! `Real = f32` and `Real = f64`, so the audit uses complex-step
 //! references. The three `f32`-only layers implement
 //! [`Layer`](crate::Layer) directly and are audited with Ridders' method in

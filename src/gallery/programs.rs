@@ -318,7 +318,12 @@ impl<R: Real> Program<R> {
     /// operation with a derivative with respect to its main input).
     pub fn with_bug(&self, delta: f64) -> Program<R> {
         let candidates: Vec<usize> = (0..self.ops.len())
-            .filter(|&k| !matches!(self.ops[k], Op::Relu | Op::Clamp(..) | Op::MaxPair))
+            .filter(|&k| {
+                !matches!(
+                    self.ops[k],
+                    Op::Relu | Op::Abs | Op::Clamp(..) | Op::MaxPair
+                )
+            })
             .collect();
         let pick = if candidates.is_empty() {
             self.ops.len() - 1
@@ -360,7 +365,8 @@ impl<R: Real> Program<R> {
         }
     }
 
-    /// The program in one line, e.g. `width 3: affine → squash(1.2) → series-erf`.
+    /// The program in one line, e.g.
+    /// `width 2, z = r3: Gate → Squash(0.53) → SoftplusNaive → Affine`.
     pub fn describe(&self) -> String {
         let names: Vec<String> = self
             .ops

@@ -371,6 +371,8 @@ pub(crate) struct Engine<'a, L: Forward + ?Sized> {
     amplification: Vec<f64>,
     /// Forward evaluations spent.
     pub evals: usize,
+    /// Backward evaluations spent (beyond the audit's own two).
+    pub backward_evals: usize,
 }
 
 impl<'a, L: Forward + ?Sized> Engine<'a, L> {
@@ -405,6 +407,7 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             spread: None,
             amplification: Vec::new(),
             evals: 0,
+            backward_evals: 0,
         }
     }
 
@@ -472,6 +475,7 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         }
         let layer = self.layer;
         let up = &self.upstream;
+        self.backward_evals += 1;
         match guarded(|| layer.backward(&moved, up)) {
             Ok(g) => Ok(Some(
                 (0..self.movable.len())
@@ -504,6 +508,7 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         let moved = data[j].as_f64();
         let layer = self.layer;
         let (args, up) = (&self.own.args, &self.upstream);
+        self.backward_evals += 1;
         let outcome = guarded(|| layer.backward(args, up));
         self.own.args.all_mut()[slot].data_mut()[j] = x0;
         match outcome {
@@ -845,8 +850,9 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
     /// A second look at an element that disagrees and is not at a kink: the
     /// error bar widened by what the forward does at this very point.
     ///
-    /// * **The forward's own rounding.** Moves of one and two ulps of x
-    ///   scatter φ about a straight line by the forward's rounding there.
+    /// * **The forward's own rounding.** Moves of x by 1 to 4096 ulps either
+    ///   way (`LOOK_OFFSETS`) scatter φ about a smooth curve by the
+    ///   forward's rounding there.
     ///   Where it exceeds a few ulps of the outputs (a series that cancels,
     ///   `1 + tanh(u)` near u = −3), a backward following the same formulas
     ///   loses as much: the backward's floor is multiplied by that
@@ -863,8 +869,8 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
     /// * **The complex step's own limits.** Its imaginary parts round along
     ///   the forward's formulas (an erf series near |x| = 2.5 cancels), and
     ///   a derivative that is zero up to O(h²) terms reads as those terms:
-    ///   the same derivative at x moved by one and two ulps, and at twice
-    ///   the step, add their spread.
+    ///   the same derivative at x moved by 1 to 4096 ulps, and at twice the
+    ///   step, add their spread.
     ///
     /// `None` when the look adds nothing.
     pub(crate) fn second_look(
@@ -914,7 +920,8 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             e.evals += LOOK_OFFSETS.len();
         } else if e.step > 0.0 {
             // The smallest step of the estimate is about a sixteenth of its
-            // widest; the forward's scatter over it is that reference's
+            // widest; the forward's scatter over it is that reference's own
+            // rounding, which its error bar may have understated.
             e.error += 4.0 * look.noise / (e.step / 16.0);
         }
         Ok(Some(e))
