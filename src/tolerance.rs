@@ -5,7 +5,8 @@
 //!
 //! ```text
 //! bound = margin × ( reference error
-//!                    + ROUNDING_ULPS · ε_layer · A · (Σ|terms| + max(|a|, |n|) + forward scale) )
+//!                    + ROUNDING_ULPS · ε_layer · max(A · (Σ|terms| + |n| + forward scale), |a|)
+//!                    + the layer precision's smallest normal number )
 //! ```
 //!
 //! * *reference error*: the scheme's own estimate ([`Estimate::error`]):
@@ -42,6 +43,18 @@ pub const MAX_MARGIN: f64 = 1e4;
 /// ULPs of the layer's precision allowed per unit of Σ|terms| for the
 /// rounding of the backward pass.
 pub const ROUNDING_ULPS: f64 = 8.0;
+
+/// The smallest normal number of the layer's precision (told apart by its
+/// ε; `Real` is `f32` or `f64`): a gradient below it is not resolved by
+/// that precision at all (e^(−124) flushes to 0 in `f32`), so differences
+/// that small say nothing about the backward.
+fn resolution(layer_eps: f64) -> f64 {
+    if layer_eps >= f64::from(f32::EPSILON) {
+        f64::from(f32::MIN_POSITIVE)
+    } else {
+        f64::MIN_POSITIVE
+    }
+}
 
 /// How the bound for each element is set.
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
@@ -163,12 +176,14 @@ impl Tolerance {
             let rel = self.max_relative.unwrap_or(0.0) * analytic.abs().max(estimate.value.abs());
             return abs.max(rel);
         }
-        let size = estimate.value.abs().max(analytic.abs());
-        let floor = ROUNDING_ULPS
-            * layer_eps
-            * estimate.amplification
-            * (estimate.scale + size + estimate.forward_scale);
-        self.margin * (estimate.error + floor)
+        // The amplification applies to what the forward's formulas feed the
+        // backward (the terms, the reference's size, the forward values),
+        // never to the analytic value itself: a wrong gradient must not
+        // widen its own bound.
+        let amplified = estimate.amplification
+            * (estimate.scale + estimate.value.abs() + estimate.forward_scale);
+        let floor = ROUNDING_ULPS * layer_eps * amplified.max(analytic.abs());
+        self.margin * (estimate.error + floor + resolution(layer_eps))
     }
 
     /// `true` if the difference is within the bound. NaN never passes.

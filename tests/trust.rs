@@ -562,3 +562,180 @@ fn a_tiny_consistent_mismatch_is_named_as_such() {
         other => panic!("{other:?}\n{r}"),
     }
 }
+
+// ------------------------- 7. wrong gradients the checker must not excuse
+//
+// Found by widening the self-test's random programs: each passed a wrong
+// gradient (or failed a correct one) before the fix named beside it.
+
+/// Frost index of a station from its three sensors: s = Σ x, and
+/// yᵢ = 3·sin(s)·xᵢ + sin(s). Smooth everywhere, with an inflection of φ
+/// near s = −2π where the kink test's curvature terms cancel. `sum_scale`
+/// scales ∂s/∂x (1 is correct; 1/3 is a sum rule written as a mean).
+struct SensorSine {
+    sum_scale: f64,
+}
+
+impl Layer for SensorSine {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "sensor").output("y", "sensor")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let x = a.input(0);
+        let s: f64 = x.data().iter().sum();
+        let w = up[0].data();
+        let sw: f64 = w.iter().sum();
+        let swx: f64 = w.iter().zip(x.data()).map(|(w, x)| w * x).sum();
+        let ds = self.sum_scale;
+        Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |j| {
+            3.0 * s.cos() * ds * swx + 3.0 * s.sin() * w[j[0]] + s.cos() * ds * sw
+        })])
+    }
+}
+
+impl GenericForward for SensorSine {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let x = a.input(0);
+        let s = x.data().iter().fold(T::zero(), |acc, &v| acc + v);
+        let three = T::from(3.0).unwrap();
+        vec![x.map(|v| three * s.sin() * v + s.sin())]
+    }
+}
+
+#[test]
+fn a_smooth_point_is_not_taken_for_a_kink_that_excuses_a_wrong_gradient() {
+    // Before: the one-sided test called this smooth point a kink (one-sided
+    // values agreeing to 2e-7) and passed an analytic value of 2.59 against
+    // a reference of 7.75 under every scheme.
+    let x = vector::<f64>(&[-3.400930085036503, 0.47515571378702043, -3.336915729921763]);
+    let args = Args::new(vec![x], vec![]);
+    for scheme in [Scheme::ComplexStep, Scheme::Ridders, Scheme::Central] {
+        let good = Audit::new()
+            .scheme(scheme)
+            .run(&SensorSine { sum_scale: 1.0 }, &args)
+            .unwrap();
+        assert!(good.passed(), "{good}");
+        assert_eq!(
+            good.rows[0].kinks, 0,
+            "a smooth point listed as a kink\n{good}"
+        );
+        let bad = Audit::new()
+            .scheme(scheme)
+            .run(
+                &SensorSine {
+                    sum_scale: 1.0 / 3.0,
+                },
+                &args,
+            )
+            .unwrap();
+        assert!(!bad.passed(), "{scheme:?}: a wrong gradient passed\n{bad}");
+        assert_eq!(bad.rows[0].failing, 3, "{bad}");
+    }
+}
+
+/// Hive heat alarm from three load cells far from zero: s = Σ x,
+/// y = e^(s²) for every output. The readings are hundreds, while φ changes
+/// on a scale of 1 in s: a first Ridders step of 0.1·|x| is far too wide.
+struct HeatAlarm {
+    factor: f64,
+}
+
+impl Layer for HeatAlarm {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "cell").output("y", "cell")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let x = a.input(0);
+        let s: f64 = x.data().iter().sum();
+        let sw: f64 = up[0].data().iter().sum();
+        let d = self.factor * sw * 2.0 * s * (s * s).exp();
+        Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |_| d)])
+    }
+}
+
+impl GenericForward for HeatAlarm {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let x = a.input(0);
+        let s = x.data().iter().fold(T::zero(), |acc, &v| acc + v);
+        vec![x.map(|_| (s * s).exp())]
+    }
+}
+
+#[test]
+fn a_first_step_far_too_wide_neither_widens_the_bound_nor_passes_a_bug() {
+    // Before: Ridders' terms at the widest step (e^((s ± 41)²)) set the
+    // bound, 2e20, and a gradient off by 3× passed.
+    let args = Args::new(vec![vector::<f64>(&[56.8, 350.8, -410.3])], vec![]);
+    for scheme in [Scheme::Ridders, Scheme::Central, Scheme::ComplexStep] {
+        let good = Audit::new()
+            .scheme(scheme)
+            .run(&HeatAlarm { factor: 1.0 }, &args)
+            .unwrap();
+        assert!(good.passed(), "{good}");
+        // The bound stays on the scale of the derivative (≈ 2.7e3).
+        let worst = good.rows[0].worst.as_ref().unwrap();
+        assert!(worst.bound < 1.0, "{good}");
+        let bad = Audit::new()
+            .scheme(scheme)
+            .run(&HeatAlarm { factor: 1.0 / 3.0 }, &args)
+            .unwrap();
+        assert!(!bad.passed(), "{scheme:?}\n{bad}");
+        assert!(
+            matches!(bad.rows[0].diagnosis, Some(Diagnosis::Scaled { .. })),
+            "{bad}"
+        );
+    }
+}
+
+/// Night-time frost decay in f32: y = e^x at readings so low that e^x
+/// underflows to 0 in f32 (and is ~1e-55 in f64). `offset` is added to the
+/// backward's slope (0 is correct).
+struct DeepCold {
+    offset: f32,
+}
+
+impl Layer for DeepCold {
+    type Real = f32;
+    fn signature(&self) -> Signature {
+        Signature::new()
+            .input("x", "station")
+            .output("y", "station")
+    }
+    fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
+        let x = a.input(0);
+        Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |i| {
+            up[0][i] * (x[i].exp() + self.offset)
+        })])
+    }
+}
+
+impl GenericForward for DeepCold {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        vec![a.input(0).map(|v| v.exp())]
+    }
+}
+
+#[test]
+fn an_output_flushed_to_zero_neither_hides_a_bug_nor_raises_an_alarm() {
+    // Before: the f32 output flushed to 0 against ~1e-55 in f64 read as a
+    // rounding amplification of ~1e6, which widened the bound of an
+    // analytic value of 99 to 795 (it passed), and a tie at 1e-194 failed
+    // as "kinks share one gradient".
+    let args = Args::new(vec![vector::<f32>(&[-123.6, -446.3, 0.0])], vec![]);
+    for (scheme, own) in [
+        (Scheme::ComplexStep, false),
+        (Scheme::Ridders, false),
+        (Scheme::Ridders, true),
+        (Scheme::Central, false),
+        (Scheme::Central, true),
+    ] {
+        let audit = Audit::new().scheme(scheme).own_precision(own);
+        let good = audit.run(&DeepCold { offset: 0.0 }, &args).unwrap();
+        assert!(good.passed(), "{scheme:?} own {own}\n{good}");
+        let bad = audit.run(&DeepCold { offset: 0.5 }, &args).unwrap();
+        assert!(!bad.passed(), "{scheme:?} own {own}\n{bad}");
+        assert_eq!(bad.rows[0].failing, 3, "{bad}");
+    }
+}

@@ -549,13 +549,17 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             return Ok(());
         };
         let eps = L::Real::EPS;
+        // Below the precision's smallest normal number, an output is off by
+        // its absolute resolution, not by a relative amount: e^(−124)
+        // flushed to 0 in f32 is not amplified rounding.
+        let tiny = <L::Real as num_traits::Float>::min_positive_value().as_f64();
         self.amplification = self
             .own
             .base
             .iter()
             .zip(&real.base)
             .map(|(own, exact)| {
-                let off = (own - exact).abs() / (4.0 * eps * exact.abs().max(f64::MIN_POSITIVE));
+                let off = (own - exact).abs() / (4.0 * eps * exact.abs().max(tiny));
                 if off.is_finite() {
                     off.max(1.0)
                 } else {

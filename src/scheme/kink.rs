@@ -65,15 +65,21 @@ pub(crate) fn kink_test(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
 /// extrapolated the same way.
 fn hidden_kink(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
     let jump = |s: &OneSided| (4.0 * s.gap_narrow - s.gap_wide) / 3.0;
-    let mut previous: Option<f64> = None;
+    // The previous step's jump and its noise.
+    let mut previous: Option<(f64, f64)> = None;
     let mut step = h;
     for _ in 0..5 {
         let s = OneSided::measure(line, step)?;
         let j = jump(&s);
         let noise = NOISE_MULTIPLE * s.noise_narrow;
-        match previous {
-            Some(p) if j.abs() <= noise && p.abs() <= 2.0 * noise => return None,
-            Some(p) if j.abs() > noise && (j - p).abs() <= 0.1 * j.abs().max(p.abs()) + noise => {
+        if let Some((p, p_noise)) = previous {
+            if j.abs() <= noise && p.abs() <= 2.0 * p_noise {
+                return None;
+            }
+            // Both jumps clearly above their noise, and the same within it.
+            let significant = j.abs() > 2.0 * noise && p.abs() > 2.0 * p_noise;
+            let same = (j - p).abs() <= 0.1 * j.abs().max(p.abs()) + noise + p_noise;
+            if significant && same {
                 let left = (4.0 * s.left - s.left_wide) / 3.0;
                 let right = (4.0 * s.right - s.right_wide) / 3.0;
                 return Some(KinkProbe {
@@ -83,9 +89,8 @@ fn hidden_kink(line: &mut impl Line, h: f64) -> Option<KinkProbe> {
                     at_point: true,
                 });
             }
-            _ => {}
         }
-        previous = Some(j);
+        previous = Some((j, noise));
         step /= 64.0;
     }
     None
@@ -120,6 +125,21 @@ fn kink_at_step(line: &mut impl Line, h: f64) -> Shape {
     // and is no kink at this step (it must not excuse a disagreement).
     if at_point && !s.stable(0.5) {
         return Shape::Rough;
+    }
+    // A jump of φ′ at the point keeps the gap as the step shrinks; a smooth
+    // φ whose curvature terms cancel at these two steps (φ″ near zero, the
+    // s³ term of the other sign) can mimic a ratio near 1 once, not at a
+    // step eight times smaller, where its gap has shrunk at least eightfold.
+    if at_point {
+        let Some(finer) = OneSided::measure(line, h / 8.0) else {
+            return Shape::Smooth;
+        };
+        let kept = finer.gap_narrow * s.gap_narrow > 0.0
+            && finer.gap_narrow.abs() >= 0.5 * s.gap_narrow.abs();
+        let lost_in_rounding = finer.gap_narrow.abs() <= NOISE_MULTIPLE * finer.noise_narrow;
+        if !kept && !lost_in_rounding {
+            return Shape::Smooth;
+        }
     }
     Shape::Kink(KinkProbe {
         left: s.left,

@@ -46,6 +46,8 @@ struct Best {
     rounding: f64,
     /// The widest step that entry used.
     step: f64,
+    /// Σ|terms| of the quotient at the smallest step that entry used.
+    terms: f64,
 }
 
 /// The next row: the fresh central difference at the new step, then each
@@ -80,6 +82,7 @@ fn extrapolate(line: &mut impl Line, first_step: f64) -> Estimate {
         error: f64::INFINITY,
         rounding: first.rounding(eps),
         step: first.width / 2.0,
+        terms: first.terms,
     };
     for _ in 1..MAX_ROWS {
         step /= SHRINK;
@@ -101,6 +104,7 @@ fn extrapolate(line: &mut impl Line, first_step: f64) -> Estimate {
                     error,
                     rounding: pair.rounding(eps),
                     step: steps[newest - order],
+                    terms: pair.terms,
                 };
             }
         }
@@ -113,20 +117,24 @@ fn extrapolate(line: &mut impl Line, first_step: f64) -> Estimate {
     // Entries can agree by chance (a linear φ): never claim less than the
     // rounding of the smallest step used, nor than 16ε of the terms, nor
     // than what outputs that did not move even at the widest step may hide.
+    // The terms are those near the point (the best entry's smallest step):
+    // a first step far wider than the scale φ changes on can sum terms
+    // that are orders of magnitude larger, and must not widen the bound
+    // nor make a poor extrapolation look conclusive.
     let floor = (4.0 * best.rounding)
-        .max(16.0 * eps * (best.value.abs() + first.terms))
+        .max(16.0 * eps * (best.value.abs() + best.terms))
         .max(quantization(&first, eps));
     let truncation = TRUST * best.error;
     Estimate {
         value: best.value,
         error: truncation.max(floor),
-        scale: first.terms,
+        scale: best.terms,
         forward_scale: first.touched / line.scale(),
         evals,
         step: best.step,
         amplification: 1.0,
         conclusive: first.touched > 0.0
-            && (truncation <= floor || conclusive(truncation, best.value, first.terms)),
+            && (truncation <= floor || conclusive(truncation, best.value, best.terms)),
     }
 }
 
