@@ -273,7 +273,9 @@ fn program_mode<R: Real>(mode: &mut Mode, m: usize, n: u64) {
         if seed % PLANT_EVERY != 0 {
             continue;
         }
-        let precision = program.forward_precision(&args);
+        // What the layer's own precision resolves at this point: its
+        // forward's measured precision, and never better than its ε.
+        let precision = program.forward_precision(&args).max(R::EPS);
         for (k, (delta, _)) in SIZES.iter().enumerate() {
             let Some((buggy, _)) = program.with_effective_bug(&args, *delta) else {
                 continue;
