@@ -92,13 +92,13 @@ pub struct JointKink {
     /// The two flat positions.
     pub elements: [usize; 2],
     /// Σ analytic over them.
-    #[serde(with = "crate::report::float_text")]
+    #[serde(with = "crate::format::float_text")]
     pub analytic_sum: f64,
     /// One-sided derivative of the joint move from the left.
-    #[serde(with = "crate::report::float_text")]
+    #[serde(with = "crate::format::float_text")]
     pub left: f64,
     /// One-sided derivative of the joint move from the right.
-    #[serde(with = "crate::report::float_text")]
+    #[serde(with = "crate::format::float_text")]
     pub right: f64,
 }
 

@@ -9,6 +9,14 @@ use thiserror::Error as ThisError;
 /// the [`Report`](crate::Report).
 ///
 /// Converts into a proptest failure with `?` (any `std::error::Error` does).
+///
+/// ```
+/// use plumbline::{Error, Tensor};
+///
+/// let err = Tensor::new(vec![2, 3], vec![1.0_f64; 5]).unwrap_err();
+/// assert!(matches!(err, Error::DataLength { .. }));
+/// assert!(err.to_string().contains("[2, 3]"), "{err}");
+/// ```
 #[derive(Debug, ThisError, Clone, PartialEq)]
 #[non_exhaustive]
 pub enum Error {

@@ -71,3 +71,43 @@ mod tests {
         assert_eq!(shorten_middle("short", 15), "short");
     }
 }
+
+/// Serde for floats that may be NaN or infinite: finite values as JSON
+/// numbers, the others as the strings `"NaN"`, `"inf"`, `"-inf"`, so a
+/// report reads back into the identical value.
+pub(crate) mod float_text {
+    use serde::{Deserialize, Deserializer, Serializer};
+
+    pub fn serialize<S: Serializer>(x: &f64, s: S) -> Result<S::Ok, S::Error> {
+        if x.is_finite() {
+            s.serialize_f64(*x)
+        } else if x.is_nan() {
+            s.serialize_str("NaN")
+        } else if *x > 0.0 {
+            s.serialize_str("inf")
+        } else {
+            s.serialize_str("-inf")
+        }
+    }
+
+    #[derive(Deserialize)]
+    #[serde(untagged)]
+    enum Either {
+        Number(f64),
+        Text(String),
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+        match Either::deserialize(d)? {
+            Either::Number(x) => Ok(x),
+            Either::Text(t) => match t.as_str() {
+                "NaN" => Ok(f64::NAN),
+                "inf" => Ok(f64::INFINITY),
+                "-inf" => Ok(f64::NEG_INFINITY),
+                other => Err(serde::de::Error::custom(format!(
+                    "expected a number, \"NaN\", \"inf\" or \"-inf\", found \"{other}\""
+                ))),
+            },
+        }
+    }
+}

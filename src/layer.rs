@@ -99,6 +99,37 @@ pub trait Layer {
 /// [`Scalar`]; the audit then uses real differences in that precision
 /// (Ridders' method by default). A layer with a [`GenericForward`] gets this
 /// trait for free and must not implement it.
+///
+/// ```
+/// use plumbline::prelude::*;
+///
+/// /// Soil-frost depth in f32 from a lookup the layer only has in f32:
+/// /// y = 0.5·x² per station.
+/// struct FrostDepth;
+///
+/// impl Layer for FrostDepth {
+///     type Real = f32;
+///     fn signature(&self) -> Signature {
+///         Signature::new().input("x", "station").output("y", "station")
+///     }
+///     fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
+///         let x = a.input(0);
+///         Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |i| up[0][i] * x[i])])
+///     }
+/// }
+///
+/// impl Forward for FrostDepth {
+///     fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
+///         vec![a.input(0).map(|x| 0.5 * x * x)]
+///     }
+/// }
+///
+/// let x = Tensor::new(vec![3], vec![0.5_f32, -1.25, 2.0])?;
+/// let report = Audit::new().run(&FrostDepth, &Args::new(vec![x], vec![]))?;
+/// assert_eq!(report.rows[0].scheme, Scheme::Ridders); // real differences in f32
+/// report.assert_passed();
+/// # Ok::<(), plumbline::Error>(())
+/// ```
 pub trait Forward: Layer {
     /// Computes the outputs, one tensor per declared output.
     fn forward(&self, args: &Args<Self::Real>) -> Vec<Tensor<Self::Real>>;

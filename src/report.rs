@@ -69,6 +69,39 @@ pub struct Report {
 }
 
 /// The finding for one input or parameter tensor.
+///
+/// ```
+/// use plumbline::prelude::*;
+/// use plumbline::{Diagnosis, Verdict};
+///
+/// /// Hive warmth y = 3·x per sensor; `factor` scales the backward.
+/// struct Warmth { factor: f64 }
+///
+/// impl Layer for Warmth {
+///     type Real = f64;
+///     fn signature(&self) -> Signature {
+///         Signature::new().input("x", "sensor").output("y", "sensor")
+///     }
+///     fn backward(&self, _: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+///         Gradients::from(vec![up[0].map(|g| 3.0 * self.factor * g)])
+///     }
+/// }
+///
+/// impl GenericForward for Warmth {
+///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+///         let k = T::from(3.0).unwrap();
+///         vec![a.input(0).map(|x| k * x)]
+///     }
+/// }
+///
+/// let args = Args::new(vec![Tensor::new(vec![4], vec![0.1, -0.2, 0.3, 0.4])?], vec![]);
+/// let report = Audit::new().run(&Warmth { factor: 2.0 }, &args)?;
+/// let row = report.row("x").unwrap();
+/// assert_eq!((row.checked, row.failing), (4, 4));
+/// let worst = row.worst.as_ref().unwrap();
+/// assert!((worst.analytic - 2.0 * worst.numeric).abs() < 1e-12);
+/// # Ok::<(), plumbline::Error>(())
+/// ```
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 #[non_exhaustive]
 pub struct Row {
@@ -103,10 +136,10 @@ pub struct Row {
     /// agree).
     pub worst: Option<Worst>,
     /// Largest |analytic − numeric|.
-    #[serde(with = "float_text")]
+    #[serde(with = "crate::format::float_text")]
     pub max_abs_error: f64,
     /// Largest |a − n| / max(|a|, |n|) over elements.
-    #[serde(with = "float_text")]
+    #[serde(with = "crate::format::float_text")]
     pub max_rel_error: f64,
     /// The row's verdict.
     pub verdict: Verdict,
@@ -127,13 +160,13 @@ pub struct Worst {
     /// Its multi-index.
     pub index: MultiIndex,
     /// The backward's value.
-    #[serde(with = "float_text")]
+    #[serde(with = "crate::format::float_text")]
     pub analytic: f64,
     /// The reference value.
-    #[serde(with = "float_text")]
+    #[serde(with = "crate::format::float_text")]
     pub numeric: f64,
     /// The bound that applied.
-    #[serde(with = "float_text")]
+    #[serde(with = "crate::format::float_text")]
     pub bound: f64,
 }
 
@@ -226,45 +259,5 @@ impl std::ops::Deref for Passed {
     type Target = Report;
     fn deref(&self) -> &Report {
         &self.0
-    }
-}
-
-/// Serde for floats that may be NaN or infinite: finite values as JSON
-/// numbers, the others as the strings `"NaN"`, `"inf"`, `"-inf"`, so a
-/// report reads back into the identical value.
-pub(crate) mod float_text {
-    use serde::{Deserialize, Deserializer, Serializer};
-
-    pub fn serialize<S: Serializer>(x: &f64, s: S) -> Result<S::Ok, S::Error> {
-        if x.is_finite() {
-            s.serialize_f64(*x)
-        } else if x.is_nan() {
-            s.serialize_str("NaN")
-        } else if *x > 0.0 {
-            s.serialize_str("inf")
-        } else {
-            s.serialize_str("-inf")
-        }
-    }
-
-    #[derive(Deserialize)]
-    #[serde(untagged)]
-    enum Either {
-        Number(f64),
-        Text(String),
-    }
-
-    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
-        match Either::deserialize(d)? {
-            Either::Number(x) => Ok(x),
-            Either::Text(t) => match t.as_str() {
-                "NaN" => Ok(f64::NAN),
-                "inf" => Ok(f64::INFINITY),
-                "-inf" => Ok(f64::NEG_INFINITY),
-                other => Err(serde::de::Error::custom(format!(
-                    "expected a number, \"NaN\", \"inf\" or \"-inf\", found \"{other}\""
-                ))),
-            },
-        }
     }
 }

@@ -18,6 +18,36 @@ use crate::tensor::{MultiIndex, Tensor};
 pub(crate) mod summary;
 
 /// What kind of backward bug the numbers point to.
+///
+/// ```
+/// use plumbline::prelude::*;
+/// use plumbline::{Diagnosis, Verdict};
+///
+/// /// Hive warmth y = 3·x per sensor; `factor` scales the backward.
+/// struct Warmth { factor: f64 }
+///
+/// impl Layer for Warmth {
+///     type Real = f64;
+///     fn signature(&self) -> Signature {
+///         Signature::new().input("x", "sensor").output("y", "sensor")
+///     }
+///     fn backward(&self, _: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+///         Gradients::from(vec![up[0].map(|g| 3.0 * self.factor * g)])
+///     }
+/// }
+///
+/// impl GenericForward for Warmth {
+///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+///         let k = T::from(3.0).unwrap();
+///         vec![a.input(0).map(|x| k * x)]
+///     }
+/// }
+///
+/// let args = Args::new(vec![Tensor::new(vec![4], vec![0.1, -0.2, 0.3, 0.4])?], vec![]);
+/// let report = Audit::new().run(&Warmth { factor: -1.0 }, &args)?;
+/// assert_eq!(report.rows[0].diagnosis, Some(Diagnosis::SignFlipped));
+/// # Ok::<(), plumbline::Error>(())
+/// ```
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 #[serde(tag = "kind", rename_all = "kebab-case")]
 #[non_exhaustive]
@@ -28,7 +58,7 @@ pub enum Diagnosis {
     /// tensor.
     Scaled {
         /// analytic / numeric.
-        #[serde(with = "crate::report::float_text")]
+        #[serde(with = "crate::format::float_text")]
         factor: f64,
         /// A common culprit that matches the factor, e.g. `1/N (N = batch = 4)`.
         culprit: Option<String>,
@@ -66,7 +96,7 @@ pub enum Diagnosis {
     /// a clamp or a floor on one side only).
     SmallMismatch {
         /// The median relative error of the wrong elements.
-        #[serde(with = "crate::report::float_text")]
+        #[serde(with = "crate::format::float_text")]
         relative: f64,
         /// Elements beyond their bound.
         wrong: usize,
@@ -103,13 +133,13 @@ pub enum Diagnosis {
         /// Where the two elements are, e.g. `[0, 1] and [0, 2]`.
         elements: String,
         /// Σ analytic over them.
-        #[serde(with = "crate::report::float_text")]
+        #[serde(with = "crate::format::float_text")]
         analytic_sum: f64,
         /// Joint one-sided derivative from the left.
-        #[serde(with = "crate::report::float_text")]
+        #[serde(with = "crate::format::float_text")]
         left: f64,
         /// Joint one-sided derivative from the right.
-        #[serde(with = "crate::report::float_text")]
+        #[serde(with = "crate::format::float_text")]
         right: f64,
     },
     /// Some elements sit at a non-differentiable point; listed apart.

@@ -8,6 +8,39 @@ use crate::compare::{relative_error, ElementCheck, ElementStatus, JointKink};
 use super::Evidence;
 
 /// A row's verdict.
+///
+/// ```
+/// use plumbline::prelude::*;
+/// use plumbline::{Diagnosis, Verdict};
+///
+/// /// Hive warmth y = 3·x per sensor; `factor` scales the backward.
+/// struct Warmth { factor: f64 }
+///
+/// impl Layer for Warmth {
+///     type Real = f64;
+///     fn signature(&self) -> Signature {
+///         Signature::new().input("x", "sensor").output("y", "sensor")
+///     }
+///     fn backward(&self, _: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+///         Gradients::from(vec![up[0].map(|g| 3.0 * self.factor * g)])
+///     }
+/// }
+///
+/// impl GenericForward for Warmth {
+///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+///         let k = T::from(3.0).unwrap();
+///         vec![a.input(0).map(|x| k * x)]
+///     }
+/// }
+///
+/// let args = Args::new(vec![Tensor::new(vec![4], vec![0.1, -0.2, 0.3, 0.4])?], vec![]);
+/// let row = &Audit::new().run(&Warmth { factor: 1.0 }, &args)?.rows[0];
+/// assert_eq!(row.verdict, Verdict::Agrees);
+/// assert!(row.verdict.is_pass());
+/// let row = &Audit::new().run(&Warmth { factor: 0.5 }, &args)?.rows[0];
+/// assert!(!row.verdict.is_pass());
+/// # Ok::<(), plumbline::Error>(())
+/// ```
 #[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "lowercase")]
 #[non_exhaustive]

@@ -29,6 +29,16 @@ pub use kink::KinkProbe;
 pub(crate) use kink::{joint_probe, kink_test};
 
 /// Which numerical reference produced a derivative.
+///
+/// Parsed from the names the table and `PLUMBLINE_SCHEME` use:
+///
+/// ```
+/// use plumbline::Scheme;
+///
+/// assert_eq!("ridders".parse::<Scheme>(), Ok(Scheme::Ridders));
+/// assert_eq!(Scheme::ComplexStep.to_string(), "complex-step");
+/// assert!("forward".parse::<Scheme>().is_err());
+/// ```
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "kebab-case")]
 #[non_exhaustive]
