@@ -11,7 +11,8 @@
 //! -- --quick` or `PLUMBLINE_QUALITY_QUICK=1` (a smoke run).
 //! `PLUMBLINE_QUALITY_CASES=n` sets the correct gallery cases per layer and
 //! precision (default 1,000), `PLUMBLINE_QUALITY_PROGRAMS=n` the random
-//! programs per mode (default 10,000). Prints tables and writes
+//! programs per mode (default 10,000), `PLUMBLINE_QUALITY_PLAIN_SCHEME`
+//! the scheme of the plain modes (default: Ridders' method). Prints tables and writes
 //! `target/bench-quality.json` (under `CARGO_TARGET_DIR` if set).
 
 use std::path::PathBuf;
@@ -256,8 +257,19 @@ impl Mode {
 const MODES: [&str; 4] = ["f64_generic", "f64_plain", "f32_generic", "f32_plain"];
 
 /// The audit of mode `m` (plain modes go through the layer's own forward).
+/// `PLUMBLINE_QUALITY_PLAIN_SCHEME=central` audits the plain modes with
+/// central differences instead of the default Ridders' method, to compare
+/// the two.
 fn audit_for(m: usize, seed: u64) -> Audit {
-    Audit::new().seed(seed).own_precision(m == 1 || m == 3)
+    let plain = m == 1 || m == 3;
+    let audit = Audit::new().seed(seed).own_precision(plain);
+    match std::env::var("PLUMBLINE_QUALITY_PLAIN_SCHEME") {
+        Ok(name) if plain && !name.is_empty() => audit.scheme(
+            name.parse()
+                .unwrap_or_else(|e| panic!("PLUMBLINE_QUALITY_PLAIN_SCHEME: {e}")),
+        ),
+        _ => audit,
+    }
 }
 
 fn program_mode<R: Real>(mode: &mut Mode, m: usize, n: u64) {
