@@ -18,6 +18,7 @@
 //! | `PLUMBLINE_KINKS_FAIL` | `1`/`0`, `true`/`false`, `yes`/`no`, `on`/`off` | `false` | code wins |
 //! | `PLUMBLINE_MAX_ELEMENTS` | positive integer | every element | code wins |
 //! | `PLUMBLINE_MAX_EVALUATIONS` | positive integer | `1000000` | code wins |
+//! | `PLUMBLINE_COVERAGE` | `auto`, `elements`, `screen` | `auto` | code wins |
 //! | `PLUMBLINE_REPORT_DIR` | a directory (created if missing; not a file) | none | writes `<test>--<layer>.json` and `.md` per audit |
 //! | `PLUMBLINE_FORMAT` | `none`, `table`, `markdown`, `json` | `none` | what each audit prints to stdout |
 //! | `PLUMBLINE_COLOR` | `auto`, `always`, `never` | `auto` | `auto`: colour only on a terminal, not with `NO_COLOR` or `TERM=dumb`; `CLICOLOR_FORCE` forces |
@@ -31,7 +32,7 @@ use std::fmt;
 use std::path::PathBuf;
 use std::str::FromStr;
 
-use crate::audit::Audit;
+use crate::audit::{Audit, Coverage};
 use crate::error::Error;
 use crate::render::ColorChoice;
 use crate::scheme::Scheme;
@@ -51,6 +52,8 @@ pub const KINKS_FAIL_VAR: &str = "PLUMBLINE_KINKS_FAIL";
 pub const MAX_ELEMENTS_VAR: &str = "PLUMBLINE_MAX_ELEMENTS";
 /// Default budget of forward evaluations per audit.
 pub const MAX_EVALUATIONS_VAR: &str = "PLUMBLINE_MAX_EVALUATIONS";
+/// How each tensor's elements are covered (see [`Coverage`]).
+pub const COVERAGE_VAR: &str = "PLUMBLINE_COVERAGE";
 /// Directory for JSON and Markdown reports.
 pub const REPORT_DIR_VAR: &str = "PLUMBLINE_REPORT_DIR";
 /// What each audit prints to standard output.
@@ -177,6 +180,8 @@ pub struct Environment {
     /// `PLUMBLINE_MAX_EVALUATIONS`: default budget of forward evaluations;
     /// code wins.
     pub max_evaluations: Option<u64>,
+    /// `PLUMBLINE_COVERAGE`: default coverage; code wins.
+    pub coverage: Option<Coverage>,
     /// `PLUMBLINE_REPORT_DIR`: write a JSON report and a Markdown summary
     /// of every audit here.
     pub report_dir: Option<PathBuf>,
@@ -271,6 +276,9 @@ impl Environment {
         if let Some(v) = get(MAX_EVALUATIONS_VAR) {
             env.max_evaluations = Some(parse::<Count>(MAX_EVALUATIONS_VAR, &v)?.0);
         }
+        if let Some(v) = get(COVERAGE_VAR) {
+            env.coverage = Some(parse(COVERAGE_VAR, &v)?);
+        }
         if let Some(v) = get(REPORT_DIR_VAR) {
             let dir = PathBuf::from(&v);
             if dir.exists() && !dir.is_dir() {
@@ -309,6 +317,9 @@ impl Environment {
         }
         if let Some(n) = self.max_evaluations {
             a = a.max_evaluations(n);
+        }
+        if let Some(c) = self.coverage {
+            a = a.coverage(c);
         }
         a
     }

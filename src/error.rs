@@ -157,7 +157,7 @@ pub enum Error {
         found: usize,
     },
     /// The audit would take more forward evaluations than its budget allows.
-    #[error("layer `{layer}`: an audit element by element needs about {needed} forward evaluations, above the budget of {budget}; raise it with `.max_evaluations(..)` or PLUMBLINE_MAX_EVALUATIONS, or check a sample with `.max_elements(..)` or PLUMBLINE_MAX_ELEMENTS")]
+    #[error("layer `{layer}`: the audit needs about {needed} forward evaluations, above the budget of {budget}; raise it with `.max_evaluations(..)` or PLUMBLINE_MAX_EVALUATIONS, check a sample with `.max_elements(..)` or PLUMBLINE_MAX_ELEMENTS, or screen large tensors with `.coverage(Coverage::Screen)` or PLUMBLINE_COVERAGE=screen")]
     OverBudget {
         /// Layer name.
         layer: String,

@@ -148,9 +148,37 @@ pub struct Row {
     pub joint_kink: Option<JointKink>,
     /// What kind of bug the numbers point to, if any.
     pub diagnosis: Option<Diagnosis>,
+    /// The directional screen, when the tensor was screened (see
+    /// [`Coverage::Screen`](crate::audit::Coverage::Screen)); `None` when
+    /// it was compared element by element only.
+    #[serde(default)]
+    pub screen: Option<Screen>,
     /// Per-element detail, in row-major order (not serialized).
     #[serde(skip)]
     pub elements: Vec<ElementCheck>,
+}
+
+/// What the directional screen of a tensor found: each direction v
+/// compares ⟨gradient, v⟩ with the derivative of φ along v.
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+#[non_exhaustive]
+pub struct Screen {
+    /// Random directions tried.
+    pub directions: usize,
+    /// Directions along which the two disagree beyond their bound.
+    pub disagreeing: usize,
+    /// ⟨gradient, v⟩ along the direction furthest beyond (or closest to)
+    /// its bound.
+    #[serde(with = "crate::format::float_text")]
+    pub analytic: f64,
+    /// The derivative of φ along that direction.
+    #[serde(with = "crate::format::float_text")]
+    pub numeric: f64,
+    /// The bound that applied there.
+    #[serde(with = "crate::format::float_text")]
+    pub bound: f64,
+    /// Elements the bisection located and compared one by one.
+    pub located: usize,
 }
 
 /// The worst element of a row.

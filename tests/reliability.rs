@@ -6,6 +6,7 @@
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Arc;
 
+use plumbline::audit::Coverage;
 use plumbline::prelude::*;
 use plumbline::report::ElementStatus;
 use plumbline::Error;
@@ -558,7 +559,10 @@ fn an_audit_over_budget_refuses_before_it_starts_and_says_what_to_set() {
     let x = Tensor::from_fn(vec![n], |ix| (ix[0] % 7) as f32 * 0.1);
     let s = Tensor::full(vec![n], 0.5_f32);
     let args = Args::new(vec![x], vec![s]);
-    let err = Audit::new().run(&WideGate, &args).unwrap_err();
+    let err = Audit::new()
+        .coverage(Coverage::Elements)
+        .run(&WideGate, &args)
+        .unwrap_err();
     match &err {
         Error::OverBudget { needed, budget, .. } => {
             assert_eq!(*budget, plumbline::audit::DEFAULT_MAX_EVALUATIONS);
@@ -569,13 +573,27 @@ fn an_audit_over_budget_refuses_before_it_starts_and_says_what_to_set() {
     }
     let msg = err.to_string();
     assert!(
-        msg.contains(".max_elements(..)") && msg.contains("PLUMBLINE_MAX_EVALUATIONS"),
+        msg.contains(".max_elements(..)")
+            && msg.contains("PLUMBLINE_MAX_EVALUATIONS")
+            && msg.contains("PLUMBLINE_COVERAGE=screen"),
         "{msg}"
     );
     // A sample fits the budget.
     let r = Audit::new().max_elements(50).run(&WideGate, &args).unwrap();
     assert!(r.passed(), "{r}");
     assert_eq!(r.row("s").unwrap().checked, 50);
+    // By default an audit over the budget screens the large tensors
+    // instead, and says so.
+    let r = Audit::new().run(&WideGate, &args).unwrap();
+    assert!(r.passed(), "{r}");
+    assert!(
+        r.rows
+            .iter()
+            .all(|row| row.screen.is_some() && row.checked == 0),
+        "{r}"
+    );
+    assert!(r.notes.iter().any(|n| n.contains("over the budget")), "{r}");
+    assert!(r.forward_evals < 20, "{}", r.forward_evals);
 }
 
 #[test]

@@ -10,6 +10,7 @@ use crate::scheme::Scheme;
 use crate::tolerance::Tolerance;
 
 mod run;
+mod screen;
 
 pub use crate::tolerance::{DEFAULT_MARGIN, MAX_MARGIN, ROUNDING_ULPS};
 
@@ -18,6 +19,75 @@ pub const DEFAULT_SEED: u64 = 0x00C0_FFEE;
 
 /// The default budget of forward evaluations per audit.
 pub const DEFAULT_MAX_EVALUATIONS: u64 = 1_000_000;
+
+/// Random directions per screened tensor (see [`Coverage::Screen`]).
+pub const SCREEN_DIRECTIONS: usize = 3;
+
+/// Tensors with more elements than this are screened when an audit
+/// screens; smaller ones are still compared element by element.
+pub const SCREEN_ABOVE: usize = 64;
+
+/// How an audit covers the elements of each tensor.
+///
+/// ```
+/// use plumbline::audit::Coverage;
+/// assert_eq!("screen".parse::<Coverage>(), Ok(Coverage::Screen));
+/// assert_eq!(Coverage::default(), Coverage::Auto);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash)]
+#[non_exhaustive]
+pub enum Coverage {
+    /// Element by element while the estimated cost fits the budget
+    /// ([`Audit::max_evaluations`]); above it, tensors of more than
+    /// [`SCREEN_ABOVE`] elements are screened, with a note (the default).
+    #[default]
+    Auto,
+    /// Element by element (or the [`Audit::max_elements`] sample) always;
+    /// above the budget the audit refuses with
+    /// [`Error::OverBudget`].
+    Elements,
+    /// Tensors of more than [`SCREEN_ABOVE`] elements are screened: the
+    /// backward's gradient is projected on [`SCREEN_DIRECTIONS`] seeded
+    /// Gaussian directions v and each ⟨gradient, v⟩ is compared with the
+    /// derivative of φ along v (one complex forward per direction), with
+    /// an error bar like an element's. This is the dot-product test; its
+    /// cost does not grow with the tensor. When a direction disagrees, the
+    /// audit bisects the tensor along it to find the elements responsible
+    /// and compares those, and a seeded sample, one by one for the
+    /// diagnosis.
+    Screen,
+}
+
+impl Coverage {
+    /// The name used by `PLUMBLINE_COVERAGE` and in messages.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Coverage::Auto => "auto",
+            Coverage::Elements => "elements",
+            Coverage::Screen => "screen",
+        }
+    }
+}
+
+impl fmt::Display for Coverage {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+impl std::str::FromStr for Coverage {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Self, String> {
+        match s {
+            "auto" => Ok(Coverage::Auto),
+            "elements" => Ok(Coverage::Elements),
+            "screen" => Ok(Coverage::Screen),
+            other => Err(format!(
+                "unknown coverage `{other}`; expected `auto`, `elements` or `screen`"
+            )),
+        }
+    }
+}
 
 /// Where an audit stands, for a progress callback.
 #[derive(Clone, Debug, PartialEq)]
@@ -80,6 +150,7 @@ pub struct Audit {
     pub(crate) max_elements: Option<usize>,
     pub(crate) max_evaluations: u64,
     pub(crate) own_precision: bool,
+    pub(crate) coverage: Coverage,
     pub(crate) progress: Option<ProgressFn>,
 }
 
@@ -102,6 +173,7 @@ impl fmt::Debug for Audit {
             .field("max_elements", &self.max_elements)
             .field("max_evaluations", &self.max_evaluations)
             .field("own_precision", &self.own_precision)
+            .field("coverage", &self.coverage)
             .field("progress", &self.progress.as_ref().map(|_| "callback"))
             .finish()
     }
@@ -119,6 +191,7 @@ impl Audit {
             max_elements: None,
             max_evaluations: DEFAULT_MAX_EVALUATIONS,
             own_precision: false,
+            coverage: Coverage::Auto,
             progress: None,
         }
     }
@@ -183,8 +256,11 @@ impl Audit {
 
     /// The budget of forward evaluations (default
     /// [`DEFAULT_MAX_EVALUATIONS`]). An audit estimates its cost before it
-    /// starts and refuses with [`Error::OverBudget`] (saying how many it
-    /// would take and what to set) rather than running for hours.
+    /// starts; above the budget it screens large tensors
+    /// ([`Coverage::Auto`]) or, when told to compare every element
+    /// ([`Coverage::Elements`]) or when even the screen does not fit,
+    /// refuses with [`Error::OverBudget`] (saying how many it would take
+    /// and what to set) rather than running for hours.
     #[must_use]
     pub fn max_evaluations(mut self, n: u64) -> Self {
         self.max_evaluations = n;
@@ -198,6 +274,43 @@ impl Audit {
     #[must_use]
     pub fn own_precision(mut self, yes: bool) -> Self {
         self.own_precision = yes;
+        self
+    }
+
+    /// How the audit covers each tensor's elements (default
+    /// [`Coverage::Auto`]: element by element within the budget, large
+    /// tensors screened above it).
+    ///
+    /// ```
+    /// use plumbline::audit::Coverage;
+    /// use plumbline::prelude::*;
+    ///
+    /// /// Frost-risk weights of 20,000 stations, y = 2·w.
+    /// struct Weights;
+    /// impl Layer for Weights {
+    ///     type Real = f64;
+    ///     fn signature(&self) -> Signature { Signature::new().param("w", "station").output("y", "station") }
+    ///     fn backward(&self, _: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
+    ///         Gradients::from(vec![g[0].map(|g| 2.0 * g)])
+    ///     }
+    /// }
+    /// impl GenericForward for Weights {
+    ///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+    ///         vec![a.param(0).map(|w| w + w)]
+    ///     }
+    /// }
+    /// let w = Tensor::from_fn(vec![20_000], |i| (i[0] % 13) as f64 * 0.1 - 0.6);
+    /// let report = Audit::new().coverage(Coverage::Screen).run(&Weights, &Args::new(vec![], vec![w]))?;
+    /// let row = &report.rows[0];
+    /// assert_eq!(row.screen.as_ref().map(|s| s.directions), Some(3));
+    /// assert_eq!(row.checked, 0); // no element compared one by one
+    /// assert!(report.forward_evals < 20);
+    /// report.assert_passed();
+    /// # Ok::<(), plumbline::Error>(())
+    /// ```
+    #[must_use]
+    pub fn coverage(mut self, coverage: Coverage) -> Self {
+        self.coverage = coverage;
         self
     }
 

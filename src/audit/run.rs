@@ -3,14 +3,14 @@
 
 use rand::{RngExt, SeedableRng};
 
-use super::{Audit, Progress};
+use super::{screen, Audit, Coverage, Progress, SCREEN_ABOVE, SCREEN_DIRECTIONS};
 use crate::compare::{self, Compared, Prober};
 use crate::diagnosis::summary::{summarize, RowFacts};
 use crate::diagnosis::{diagnose, Evidence};
 use crate::error::Error;
 use crate::format::num;
 use crate::layer::{Args, Forward, Gradients};
-use crate::report::{Report, Row, Worst};
+use crate::report::{Report, Row, Screen, Verdict, Worst};
 use crate::scalar::Real;
 use crate::scheme::engine::{guarded, Engine};
 use crate::scheme::{scatter_about_parabola, Estimate, KinkProbe, Scheme};
@@ -66,6 +66,9 @@ impl Audit {
             forward_change: first_difference(&sig, &y0, &y1),
             nonfinite_output: first_nonfinite(&sig, &y0),
             sizes: bindings.named_sizes(),
+            tensors: (sig.slots().iter().map(|s| s.name.clone()))
+                .zip(args.all().iter().map(|t| t.map(|v| v.as_f64())))
+                .collect(),
             ..Evidence::default()
         };
 
@@ -92,7 +95,30 @@ impl Audit {
             .map(|&(k, _)| sample(args.all()[k].len(), self.max_elements, self.seed, k))
             .collect();
         let total: usize = plan.iter().map(Vec::len).sum();
-        let needed = total as u64 * cost_per_element(scheme) + 4;
+        let per_element = cost_per_element(scheme);
+        let exhaustive = total as u64 * per_element + 4;
+        let screening = match self.coverage {
+            Coverage::Elements => false,
+            Coverage::Screen => true,
+            _ => exhaustive > self.max_evaluations,
+        };
+        let screened: Vec<bool> = differentiable
+            .iter()
+            .map(|&(k, _)| screening && args.all()[k].len() > SCREEN_ABOVE)
+            .collect();
+        let needed = plan
+            .iter()
+            .zip(&screened)
+            .map(|(p, &s)| {
+                let estimates = if s {
+                    screen::worst_case(p.len(), SCREEN_DIRECTIONS)
+                } else {
+                    p.len() as u64
+                };
+                estimates * per_element
+            })
+            .sum::<u64>()
+            + 4;
         if needed > self.max_evaluations {
             return Err(Error::OverBudget {
                 layer: name,
@@ -115,6 +141,14 @@ impl Audit {
         engine.set_movable(differentiable.iter().map(|&(k, _)| k).collect());
         let mut rows = Vec::with_capacity(differentiable.len());
         let mut notes = Vec::new();
+        if screening && self.coverage == Coverage::Auto && screened.contains(&true) {
+            notes.push(format!(
+                "comparing every element would take about {exhaustive} forward evaluations, over the budget of {}: \
+                 tensors of more than {SCREEN_ABOVE} elements were screened along {SCREEN_DIRECTIONS} random directions \
+                 (`.coverage(Coverage::Elements)` with a larger `.max_evaluations(..)` compares them all)",
+                self.max_evaluations
+            ));
+        }
         let mut progress = Tally {
             done: 0,
             total,
@@ -126,14 +160,47 @@ impl Audit {
                 (Some(a), Some(b)) => first_tensor_difference(a, b),
                 _ => None,
             };
+            let args_tensor = &args.all()[slot];
+            let grad = grad.map(|g| g.map(|v| v.as_f64()));
+            let mut screen_result = None;
+            let mut indices = plan[d].clone();
+            if screened[d] {
+                let inputs: Vec<f64> = args_tensor.data().iter().map(|v| v.as_f64()).collect();
+                match grad.as_ref().filter(|g| g.shape() == args_tensor.shape()) {
+                    Some(g) => {
+                        let target = screen::Target {
+                            slot,
+                            grad_index: d,
+                            grad: g,
+                            inputs: &inputs,
+                            scheme,
+                        };
+                        let found = screen::screen(
+                            &mut engine,
+                            &target,
+                            &self.tolerance,
+                            L::Real::EPS,
+                            self.seed,
+                            SCREEN_DIRECTIONS,
+                        )?;
+                        notes.push(screen::note(&spec.name, &found.screen, args_tensor.len()));
+                        indices = found.suspects;
+                        screen_result = Some(found.screen);
+                    }
+                    // No gradient of the tensor's shape: a sample is enough
+                    // for the verdict and its diagnosis.
+                    None => indices = screen::sample_of(args_tensor.len(), self.seed, slot),
+                }
+            }
             let mut tensor = TensorCase {
                 spec,
                 slot,
                 grad_index: d,
-                args_tensor: &args.all()[slot],
-                grad: grad.map(|g| g.map(|v| v.as_f64())),
-                indices: &plan[d],
+                args_tensor,
+                grad,
+                indices: &indices,
                 scheme,
+                screen: screen_result,
             };
             let estimates =
                 self.estimate_tensor(&mut engine, &mut tensor, &mut notes, &mut progress)?;
@@ -352,7 +419,12 @@ impl Audit {
             evidence,
             kinks_fail: self.kinks_fail,
         };
-        let s = summarize(&elements, &facts);
+        let mut s = summarize(&elements, &facts);
+        // A screen that disagreed fails the row even when no element
+        // compared one by one shows why.
+        if t.screen.as_ref().is_some_and(|sc| sc.disagreeing > 0) && s.verdict.is_pass() {
+            s.verdict = Verdict::Disagrees;
+        }
         if self.tolerance.is_fixed()
             && !elements.is_empty()
             && elements.iter().all(|e| e.bound >= e.numeric.abs())
@@ -391,6 +463,7 @@ impl Audit {
             verdict: s.verdict,
             joint_kink,
             diagnosis,
+            screen: t.screen,
             shape,
             elements,
         })
@@ -414,6 +487,8 @@ struct TensorCase<'a, R> {
     grad: Option<Tensor<f64>>,
     indices: &'a [usize],
     scheme: Scheme,
+    /// The directional screen, when the tensor was screened.
+    screen: Option<Screen>,
 }
 
 /// Counts checked elements and calls the progress callback.

@@ -85,11 +85,7 @@ fn cells(rank: usize, r: &Row) -> [String; COLS] {
         r.name.clone(),
         r.role.to_string(),
         shape_string(&r.shape),
-        if r.total > r.checked {
-            format!("{}/{}", r.checked, r.total)
-        } else {
-            r.checked.to_string()
-        },
+        checked_cell(r),
         r.failing.to_string(),
         at,
         a,
@@ -339,4 +335,19 @@ pub fn markdown(report: &Report) -> String {
         let _ = writeln!(out, "| {} |", c.join(" | "));
     }
     out
+}
+
+/// The `checked` cell: elements compared (of the total when fewer), and the
+/// screen's directions when the tensor was screened (`3 dir`, `40/10^6 + 3 dir`).
+fn checked_cell(r: &Row) -> String {
+    let elements = if r.total > r.checked {
+        format!("{}/{}", r.checked, r.total)
+    } else {
+        r.checked.to_string()
+    };
+    match &r.screen {
+        Some(s) if r.checked == 0 => format!("{} dir", s.directions),
+        Some(s) => format!("{elements} + {} dir", s.directions),
+        None => elements,
+    }
 }

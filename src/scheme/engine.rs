@@ -843,6 +843,50 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         })
     }
 
+    /// The derivative of φ along a direction of tensor `slot`: every
+    /// element `j` of `direction` moved by t·vⱼ at once. The complex step
+    /// takes one evaluation with h = 1e-20·max(|x|, 1) over the largest
+    /// element moved; real schemes take their usual stencil along the
+    /// line. The estimate's scale is the line's Σ|terms|.
+    pub(crate) fn directional(
+        &mut self,
+        slot: usize,
+        direction: &[(usize, f64)],
+        scheme: Scheme,
+    ) -> Result<Estimate, Error> {
+        if direction.is_empty() {
+            // Nothing moves: φ does not change.
+            return Ok(Estimate {
+                value: 0.0,
+                error: 0.0,
+                conclusive: true,
+                ..Estimate::not_finite(0)
+            });
+        }
+        if scheme != Scheme::ComplexStep {
+            return match self.ask(slot, direction, Ask::Estimate(scheme))? {
+                Answer::Estimate(e) => Ok(e),
+                _ => unreachable!("an estimate was asked for"),
+            };
+        }
+        let data = self.own.args.all()[slot].data();
+        let largest = direction
+            .iter()
+            .fold(0.0_f64, |m, &(j, _)| m.max(data[j].as_f64().abs()));
+        let h = 1e-20 * largest.max(1.0);
+        let d = self.complex_along(slot, direction, h)?;
+        Ok(Estimate {
+            value: if d.finite { d.value } else { f64::NAN },
+            error: 4.0 * f64::EPSILON * d.terms + d.underflow,
+            scale: d.terms,
+            forward_scale: d.touched / largest.max(1.0),
+            evals: 1,
+            step: 0.0,
+            conclusive: true,
+            amplification: d.amplification,
+        })
+    }
+
     /// A central difference over ±h at element `j`, in real arithmetic.
     pub(crate) fn pair(&mut self, slot: usize, j: usize, h: f64) -> Result<Pair, Error> {
         match self.ask(slot, &[(j, 1.0)], Ask::Pair(h))? {
