@@ -19,6 +19,7 @@
 //! | `PLUMBLINE_MAX_ELEMENTS` | positive integer | every element | code wins |
 //! | `PLUMBLINE_MAX_EVALUATIONS` | positive integer | `1000000` | code wins |
 //! | `PLUMBLINE_COVERAGE` | `auto`, `elements`, `screen` | `auto` | code wins |
+//! | `PLUMBLINE_THREADS` | positive integer | every core | code wins (`assert_backward!` uses them for `Sync` layers) |
 //! | `PLUMBLINE_REPORT_DIR` | a directory (created if missing; not a file) | none | writes `<test>--<layer>.json` and `.md` per audit |
 //! | `PLUMBLINE_FORMAT` | `none`, `table`, `markdown`, `json` | `none` | what each audit prints to stdout |
 //! | `PLUMBLINE_COLOR` | `auto`, `always`, `never` | `auto` | `auto`: colour only on a terminal, not with `NO_COLOR` or `TERM=dumb`; `CLICOLOR_FORCE` forces |
@@ -54,6 +55,8 @@ pub const MAX_ELEMENTS_VAR: &str = "PLUMBLINE_MAX_ELEMENTS";
 pub const MAX_EVALUATIONS_VAR: &str = "PLUMBLINE_MAX_EVALUATIONS";
 /// How each tensor's elements are covered (see [`Coverage`]).
 pub const COVERAGE_VAR: &str = "PLUMBLINE_COVERAGE";
+/// Threads of a parallel audit.
+pub const THREADS_VAR: &str = "PLUMBLINE_THREADS";
 /// Directory for JSON and Markdown reports.
 pub const REPORT_DIR_VAR: &str = "PLUMBLINE_REPORT_DIR";
 /// What each audit prints to standard output.
@@ -182,6 +185,8 @@ pub struct Environment {
     pub max_evaluations: Option<u64>,
     /// `PLUMBLINE_COVERAGE`: default coverage; code wins.
     pub coverage: Option<Coverage>,
+    /// `PLUMBLINE_THREADS`: default threads of a parallel audit; code wins.
+    pub threads: Option<usize>,
     /// `PLUMBLINE_REPORT_DIR`: write a JSON report and a Markdown summary
     /// of every audit here.
     pub report_dir: Option<PathBuf>,
@@ -279,6 +284,10 @@ impl Environment {
         if let Some(v) = get(COVERAGE_VAR) {
             env.coverage = Some(parse(COVERAGE_VAR, &v)?);
         }
+        if let Some(v) = get(THREADS_VAR) {
+            let n = parse::<Count>(THREADS_VAR, &v)?.0;
+            env.threads = Some(usize::try_from(n).unwrap_or(usize::MAX));
+        }
         if let Some(v) = get(REPORT_DIR_VAR) {
             let dir = PathBuf::from(&v);
             if dir.exists() && !dir.is_dir() {
@@ -320,6 +329,9 @@ impl Environment {
         }
         if let Some(c) = self.coverage {
             a = a.coverage(c);
+        }
+        if let Some(n) = self.threads {
+            a = a.threads(n);
         }
         a
     }

@@ -10,7 +10,7 @@ use std::fmt::Write as _;
 use crate::audit::Audit;
 use crate::env::{Environment, PrintFormat, SCHEME_VAR};
 use crate::error::Error;
-use crate::layer::{Args, Forward};
+use crate::layer::{Args, Forward, Layer};
 use crate::render::{failure_head, failure_message, files, markdown, stdout_style, table};
 use crate::report::{ElementStatus, Passed, Report, Verdict};
 
@@ -107,13 +107,55 @@ impl Report {
 #[macro_export]
 macro_rules! assert_backward {
     ($layer:expr, $args:expr $(,)?) => {{
-        use $crate::__Audited as _;
-        $crate::__assert_backward(($layer).__audited(), $args, |audit| audit)
+        #[allow(unused_imports)]
+        use $crate::{__Audited as _, __OnOneThread as _, __OnThreads as _};
+        let layer = ($layer).__audited();
+        let entry = (&$crate::__Pick(layer)).__entry();
+        $crate::__assert_backward(layer, $args, |audit| audit, entry)
     }};
     ($layer:expr, $args:expr, $($key:ident = $value:expr),+ $(,)?) => {{
-        use $crate::__Audited as _;
-        $crate::__assert_backward(($layer).__audited(), $args, |audit| audit $(.$key($value))+)
+        #[allow(unused_imports)]
+        use $crate::{__Audited as _, __OnOneThread as _, __OnThreads as _};
+        let layer = ($layer).__audited();
+        let entry = (&$crate::__Pick(layer)).__entry();
+        $crate::__assert_backward(layer, $args, |audit| audit $(.$key($value))+, entry)
     }};
+}
+
+/// How the macro runs an audit: [`Audit::run_parallel`] for a `Sync`
+/// layer, [`Audit::run`] otherwise. Not public API.
+#[doc(hidden)]
+pub type __Entry<L> = fn(&Audit, &L, &Args<<L as Layer>::Real>) -> Result<Report, Error>;
+
+/// Picks the entry point by the layer's type (a method found on the value
+/// wins over one found through an extra `&`). Not public API.
+#[doc(hidden)]
+pub struct __Pick<'a, L: ?Sized>(pub &'a L);
+
+/// A `Sync` layer's entry point: every core. Not public API.
+#[doc(hidden)]
+pub trait __OnThreads<L: Forward + ?Sized> {
+    /// The entry point.
+    fn __entry(&self) -> __Entry<L>;
+}
+
+impl<L: Forward + Sync + ?Sized> __OnThreads<L> for __Pick<'_, L> {
+    fn __entry(&self) -> __Entry<L> {
+        |audit, layer, args| audit.run_parallel(layer, args)
+    }
+}
+
+/// Any other layer's entry point: one thread. Not public API.
+#[doc(hidden)]
+pub trait __OnOneThread<L: Forward + ?Sized> {
+    /// The entry point.
+    fn __entry(&self) -> __Entry<L>;
+}
+
+impl<L: Forward + ?Sized> __OnOneThread<L> for &__Pick<'_, L> {
+    fn __entry(&self) -> __Entry<L> {
+        |audit, layer, args| audit.run(layer, args)
+    }
 }
 
 /// Lets [`assert_backward!`](crate::assert_backward) take a layer by value
@@ -136,12 +178,13 @@ pub fn __assert_backward<L: Forward + ?Sized>(
     layer: &L,
     args: &Args<L::Real>,
     configure: impl Fn(Audit) -> Audit,
+    entry: __Entry<L>,
 ) -> Passed {
     let env = match Environment::from_env() {
         Ok(env) => env,
         Err(e) => panic!("assert_backward!: {e}"),
     };
-    match audit_with_env(layer, args, &env, &configure) {
+    match audit_with_env(layer, args, &env, &configure, entry) {
         Ok(report) => {
             if let Err(e) = record(&env, &report, true) {
                 panic!("assert_backward!: {e}");
@@ -163,9 +206,10 @@ fn audit_with_env<L: Forward + ?Sized>(
     args: &Args<L::Real>,
     env: &Environment,
     configure: &impl Fn(Audit) -> Audit,
+    entry: __Entry<L>,
 ) -> Result<Report, Error> {
     let audit = env.audit(configure)?;
-    audit.run(layer, args).map_err(|e| match e {
+    entry(&audit, layer, args).map_err(|e| match e {
         Error::Setting {
             setting,
             value,
@@ -331,7 +375,9 @@ pub fn check_layer_with<L: Forward + ?Sized>(
 ) -> Result<Passed, proptest::test_runner::TestCaseError> {
     use proptest::test_runner::TestCaseError;
     let env = Environment::from_env()?;
-    let report = audit_with_env(layer, args, &env, &configure)?;
+    let report = audit_with_env(layer, args, &env, &configure, |audit, layer, args| {
+        audit.run(layer, args)
+    })?;
     match CaseOutcome::of(&report) {
         CaseOutcome::Pass => Ok(Passed(report)),
         CaseOutcome::Reject => Err(TestCaseError::reject(format!(

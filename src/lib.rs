@@ -124,7 +124,7 @@ pub use error::Error;
 #[cfg(feature = "proptest")]
 pub use harness::check_layer;
 #[doc(hidden)]
-pub use harness::{__Audited, __assert_backward};
+pub use harness::{__Audited, __Entry, __OnOneThread, __OnThreads, __Pick, __assert_backward};
 pub use layer::{Args, Forward, GenericForward, Gradients, Layer};
 pub use report::{Report, Row, Verdict};
 pub use scalar::{Real, Scalar};

@@ -217,3 +217,33 @@ fn coverage_is_a_macro_key_and_an_environment_variable() {
     .unwrap_err();
     assert!(bad.to_string().contains("PLUMBLINE_COVERAGE"), "{bad}");
 }
+
+#[test]
+fn reports_are_the_same_on_one_two_and_three_threads() {
+    let a = args(4, 2, 30, 16);
+    for bug in [Bug::None, Bug::Sign, Bug::OneElement] {
+        let layer = FrostZones { bug };
+        for audit in [
+            Audit::new().seed(9),
+            Audit::new().seed(9).scheme(Scheme::Central),
+            Audit::new().seed(9).coverage(Coverage::Screen),
+        ] {
+            let one = audit.clone().run(&layer, &a).unwrap();
+            for threads in [1, 2, 3] {
+                let many = audit
+                    .clone()
+                    .threads(threads)
+                    .run_parallel(&layer, &a)
+                    .unwrap();
+                assert_eq!(one, many, "{bug:?}, {threads} threads\n{one}\n{many}");
+                assert_eq!(one.rows[0].elements, many.rows[0].elements);
+            }
+        }
+    }
+    let refused = Audit::new()
+        .threads(0)
+        .run_parallel(&FrostZones { bug: Bug::None }, &a);
+    assert!(
+        matches!(refused, Err(plumbline::Error::Setting { ref setting, .. }) if setting == "threads")
+    );
+}

@@ -99,7 +99,7 @@ pub struct Progress {
     pub done: usize,
     /// Elements to check, over all tensors.
     pub total: usize,
-    /// Forward evaluations so far.
+    /// Forward evaluations of the element estimates so far.
     pub forward_evals: usize,
 }
 
@@ -151,6 +151,7 @@ pub struct Audit {
     pub(crate) max_evaluations: u64,
     pub(crate) own_precision: bool,
     pub(crate) coverage: Coverage,
+    pub(crate) threads: Option<usize>,
     pub(crate) progress: Option<ProgressFn>,
 }
 
@@ -174,6 +175,7 @@ impl fmt::Debug for Audit {
             .field("max_evaluations", &self.max_evaluations)
             .field("own_precision", &self.own_precision)
             .field("coverage", &self.coverage)
+            .field("threads", &self.threads)
             .field("progress", &self.progress.as_ref().map(|_| "callback"))
             .finish()
     }
@@ -192,6 +194,7 @@ impl Audit {
             max_evaluations: DEFAULT_MAX_EVALUATIONS,
             own_precision: false,
             coverage: Coverage::Auto,
+            threads: None,
             progress: None,
         }
     }
@@ -314,6 +317,14 @@ impl Audit {
         self
     }
 
+    /// Threads for [`run_parallel`](Audit::run_parallel) (n ≥ 1; default:
+    /// every core the machine has). [`run`](Audit::run) uses one.
+    #[must_use]
+    pub fn threads(mut self, n: usize) -> Self {
+        self.threads = Some(n);
+        self
+    }
+
     /// The layer name shown in the report.
     #[must_use]
     pub fn name(mut self, name: impl Into<String>) -> Self {
@@ -348,6 +359,13 @@ impl Audit {
                 setting: "max_elements".into(),
                 value: "0".into(),
                 detail: "checking no element passes any backward; give at least 1".into(),
+            });
+        }
+        if self.threads == Some(0) {
+            return Err(Error::Setting {
+                setting: "threads".into(),
+                value: "0".into(),
+                detail: "an audit needs at least one thread".into(),
             });
         }
         if self.max_evaluations == 0 {

@@ -1,6 +1,8 @@
 //! One audit, start to finish: check the arguments, call the layer,
 //! estimate every checked element, compare, summarise, diagnose.
 
+use std::sync::atomic::{AtomicUsize, Ordering};
+
 use rand::{RngExt, SeedableRng};
 
 use super::{screen, Audit, Coverage, Progress, SCREEN_ABOVE, SCREEN_DIRECTIONS};
@@ -12,7 +14,7 @@ use crate::format::num;
 use crate::layer::{Args, Forward, Gradients};
 use crate::report::{Report, Row, Screen, Verdict, Worst};
 use crate::scalar::Real;
-use crate::scheme::engine::{guarded, Engine};
+use crate::scheme::engine::{guarded, Blueprint, Engine};
 use crate::scheme::{scatter_about_parabola, Estimate, KinkProbe, Scheme};
 use crate::signature::{Role, Signature, Slot};
 use crate::tensor::{MultiIndex, Tensor};
@@ -51,6 +53,63 @@ impl Audit {
         layer: &L,
         args: &Args<L::Real>,
     ) -> Result<Report, Error> {
+        self.run_with(layer, args, None)
+    }
+
+    /// [`run`](Audit::run) with the elements of each tensor estimated on
+    /// [`threads`](Audit::threads) threads (default: every core). The layer
+    /// is shared between the threads, so it must be `Sync` (a layer that
+    /// keeps a `RefCell` cache is not: use a `Mutex`, or [`run`](Audit::run)).
+    /// The report is the same for every number of threads: each element's
+    /// estimate comes from the same copies of the arguments, and the
+    /// results are put back in order.
+    /// [`assert_backward!`](crate::assert_backward) calls this for every
+    /// `Sync` layer.
+    ///
+    /// ```
+    /// use plumbline::prelude::*;
+    ///
+    /// /// Frost index of 500 stations, y = x³.
+    /// struct Cube;
+    /// impl Layer for Cube {
+    ///     type Real = f64;
+    ///     fn signature(&self) -> Signature { Signature::new().input("x", "station").output("y", "station") }
+    ///     fn backward(&self, a: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
+    ///         let x = a.input(0);
+    ///         Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |i| 3.0 * x[i] * x[i] * g[0][i])])
+    ///     }
+    /// }
+    /// impl GenericForward for Cube {
+    ///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+    ///         vec![a.input(0).map(|x| x * x * x)]
+    ///     }
+    /// }
+    /// let x = Tensor::from_fn(vec![500], |i| i[0] as f64 / 250.0 - 1.0);
+    /// let args = Args::new(vec![x], vec![]);
+    /// let one = Audit::new().threads(1).run_parallel(&Cube, &args)?;
+    /// let two = Audit::new().threads(2).run_parallel(&Cube, &args)?;
+    /// assert_eq!(one, two);
+    /// one.assert_passed();
+    /// # Ok::<(), plumbline::Error>(())
+    /// ```
+    pub fn run_parallel<L: Forward + Sync + ?Sized>(
+        &self,
+        layer: &L,
+        args: &Args<L::Real>,
+    ) -> Result<Report, Error> {
+        let threads = self.threads.unwrap_or_else(|| {
+            std::thread::available_parallelism().map_or(1, std::num::NonZeroUsize::get)
+        });
+        let workers = Parallel { layer, threads };
+        self.run_with(layer, args, Some(&workers))
+    }
+
+    fn run_with<L: Forward + ?Sized>(
+        &self,
+        layer: &L,
+        args: &Args<L::Real>,
+        workers: Option<&dyn Workers<L::Real>>,
+    ) -> Result<Report, Error> {
         self.validate()?;
         let name = self.name.clone().unwrap_or_else(short_type_name::<L>);
         let sig = call(&name, "signature", || layer.signature())?;
@@ -60,7 +119,8 @@ impl Audit {
 
         let y0 = call(&name, "forward", || layer.forward(args))?;
         let y1 = call(&name, "forward (second call)", || layer.forward(args))?;
-        sig.check_outputs(&name, "forward", &bindings, &y0)?;
+        // The outputs' named dims join the arguments' for naming factors.
+        let bindings = sig.check_outputs(&name, "forward", &bindings, &y0)?;
         sig.check_outputs(&name, "forward (second call)", &bindings, &y1)?;
         let mut evidence = Evidence {
             forward_change: first_difference(&sig, &y0, &y1),
@@ -149,8 +209,9 @@ impl Audit {
                 self.max_evaluations
             ));
         }
-        let mut progress = Tally {
-            done: 0,
+        let progress = Tally {
+            done: AtomicUsize::new(0),
+            evals: AtomicUsize::new(0),
             total,
             callback: self.progress.as_deref(),
         };
@@ -203,7 +264,7 @@ impl Audit {
                 screen: screen_result,
             };
             let estimates =
-                self.estimate_tensor(&mut engine, &mut tensor, &mut notes, &mut progress)?;
+                self.estimate_tensor(&mut engine, &mut tensor, &mut notes, &progress, workers)?;
             rows.push(self.row(
                 tensor,
                 estimates,
@@ -269,23 +330,35 @@ impl Audit {
         engine: &mut Engine<'_, L>,
         t: &mut TensorCase<'_, L::Real>,
         notes: &mut Vec<String>,
-        progress: &mut Tally<'_>,
+        progress: &Tally<'_>,
+        workers: Option<&dyn Workers<L::Real>>,
     ) -> Result<Vec<Estimate>, Error> {
-        let mut estimates = Vec::with_capacity(t.indices.len());
-        for &j in t.indices {
-            // An element that is ±∞ or NaN cannot be moved: it is reported
-            // as not compared, and only its gradient's finiteness counts.
-            let e = if !engine.value(t.slot, j).is_finite() {
-                Estimate::not_finite(0)
-            } else {
-                match t.scheme {
-                    Scheme::ComplexStep => engine.complex_estimate(t.slot, j)?,
-                    _ => engine.real_estimate(t.slot, j, t.scheme)?,
+        let estimates =
+            match workers.filter(|w| w.threads() > 1 && t.indices.len() >= PARALLEL_ABOVE) {
+                Some(w) => {
+                    let blueprint = engine.blueprint(t.scheme != Scheme::ComplexStep)?;
+                    let job = Job {
+                        blueprint: &blueprint,
+                        layer_name: engine.layer_name(),
+                        slot: t.slot,
+                        tensor: &t.spec.name,
+                        scheme: t.scheme,
+                        progress,
+                    };
+                    let (estimates, evals) = w.estimate(&job, t.indices)?;
+                    engine.evals += evals;
+                    estimates
+                }
+                None => {
+                    let mut estimates = Vec::with_capacity(t.indices.len());
+                    for &j in t.indices {
+                        let before = engine.evals;
+                        estimates.push(estimate_one(engine, t.slot, j, t.scheme)?);
+                        progress.step(&t.spec.name, engine.evals - before);
+                    }
+                    estimates
                 }
             };
-            estimates.push(e);
-            progress.step(&t.spec.name, engine.evals);
-        }
         if t.scheme != Scheme::ComplexStep {
             return Ok(estimates);
         }
@@ -491,24 +564,128 @@ struct TensorCase<'a, R> {
     screen: Option<Screen>,
 }
 
-/// Counts checked elements and calls the progress callback.
+/// Counts checked elements and calls the progress callback (from any
+/// thread).
 struct Tally<'a> {
-    done: usize,
+    done: AtomicUsize,
+    /// Forward evaluations of the element estimates so far.
+    evals: AtomicUsize,
     total: usize,
     callback: Option<&'a (dyn Fn(&Progress) + Send + Sync)>,
 }
 
 impl Tally<'_> {
-    fn step(&mut self, tensor: &str, forward_evals: usize) {
-        self.done += 1;
+    /// One more element done, which took `evals` forward evaluations.
+    fn step(&self, tensor: &str, evals: usize) {
+        let done = self.done.fetch_add(1, Ordering::Relaxed) + 1;
+        let forward_evals = self.evals.fetch_add(evals, Ordering::Relaxed) + evals;
         if let Some(f) = self.callback {
             f(&Progress {
                 tensor: tensor.to_string(),
-                done: self.done,
+                done,
                 total: self.total,
                 forward_evals,
             });
         }
+    }
+}
+
+/// Tensors with fewer checked elements than this are estimated on the
+/// calling thread: starting threads would cost more than it saves.
+const PARALLEL_ABOVE: usize = 64;
+
+/// The estimate of one element (an element that is ±∞ or NaN cannot be
+/// moved: it is reported as not compared, and only its gradient's
+/// finiteness counts).
+fn estimate_one<L: Forward + ?Sized>(
+    engine: &mut Engine<'_, L>,
+    slot: usize,
+    j: usize,
+    scheme: Scheme,
+) -> Result<Estimate, Error> {
+    if !engine.value(slot, j).is_finite() {
+        return Ok(Estimate::not_finite(0));
+    }
+    match scheme {
+        Scheme::ComplexStep => engine.complex_estimate(slot, j),
+        _ => engine.real_estimate(slot, j, scheme),
+    }
+}
+
+/// One tensor's element estimates, as handed to the workers.
+struct Job<'a, R> {
+    blueprint: &'a Blueprint<R>,
+    layer_name: &'a str,
+    slot: usize,
+    tensor: &'a str,
+    scheme: Scheme,
+    progress: &'a Tally<'a>,
+}
+
+/// Estimates a tensor's elements on several threads.
+trait Workers<R> {
+    fn threads(&self) -> usize;
+    /// The estimates in the order of `indices`, and the forward
+    /// evaluations they took.
+    fn estimate(
+        &self,
+        job: &Job<'_, R>,
+        indices: &[usize],
+    ) -> Result<(Vec<Estimate>, usize), Error>;
+}
+
+/// Scoped threads over contiguous chunks of the elements, each with its
+/// own engine built from the same blueprint.
+struct Parallel<'a, L: ?Sized> {
+    layer: &'a L,
+    threads: usize,
+}
+
+impl<L: Forward + Sync + ?Sized> Workers<L::Real> for Parallel<'_, L> {
+    fn threads(&self) -> usize {
+        self.threads
+    }
+
+    fn estimate(
+        &self,
+        job: &Job<'_, L::Real>,
+        indices: &[usize],
+    ) -> Result<(Vec<Estimate>, usize), Error> {
+        let chunk = indices.len().div_ceil(self.threads);
+        let layer = self.layer;
+        let results: Vec<Result<(Vec<Estimate>, usize), Error>> = std::thread::scope(|scope| {
+            let handles: Vec<_> = indices
+                .chunks(chunk)
+                .map(|part| {
+                    scope.spawn(move || {
+                        let mut engine =
+                            Engine::from_blueprint(layer, job.layer_name, job.blueprint.clone());
+                        let mut out = Vec::with_capacity(part.len());
+                        for &j in part {
+                            let before = engine.evals;
+                            out.push(estimate_one(&mut engine, job.slot, j, job.scheme)?);
+                            job.progress.step(job.tensor, engine.evals - before);
+                        }
+                        Ok((out, engine.evals))
+                    })
+                })
+                .collect();
+            handles
+                .into_iter()
+                .map(|h| {
+                    h.join()
+                        .unwrap_or_else(|panic| std::panic::resume_unwind(panic))
+                })
+                .collect()
+        });
+        let mut estimates = Vec::with_capacity(indices.len());
+        let mut evals = 0;
+        for r in results {
+            let (part, n) = r?;
+            estimates.extend(part);
+            evals += n;
+        }
+        Ok((estimates, evals))
     }
 }
 

@@ -40,6 +40,7 @@ pub(crate) fn guarded<T>(f: impl FnOnce() -> T) -> Result<T, String> {
 
 /// A working copy of the arguments in one precision, with the forward's
 /// outputs at the point (in `f64`) and a buffer reused across evaluations.
+#[derive(Clone)]
 pub(crate) struct Working<U> {
     args: Args<U>,
     /// Outputs at the point, flattened over all outputs.
@@ -375,7 +376,76 @@ pub(crate) struct Engine<'a, L: Forward + ?Sized> {
     pub backward_evals: usize,
 }
 
+/// What a worker engine on another thread starts from: copies of the
+/// working arguments and of what the main engine measured, so that every
+/// element's estimate is the same whichever engine makes it.
+#[derive(Clone)]
+pub(crate) struct Blueprint<R> {
+    slot_names: Vec<String>,
+    use_generic: bool,
+    w: Vec<f64>,
+    w_per_output: Vec<Vec<f64>>,
+    own: Working<R>,
+    real: Option<Working<f64>>,
+    complex: Option<Args<ComplexStep<f64>>>,
+    upstream: Vec<Tensor<R>>,
+    movable: Vec<usize>,
+    amplification: Vec<f64>,
+}
+
 impl<'a, L: Forward + ?Sized> Engine<'a, L> {
+    /// The layer's name, for messages.
+    pub(crate) fn layer_name(&self) -> &'a str {
+        self.layer_name
+    }
+
+    /// A copy of what this engine works from, for engines on other threads
+    /// (with the `f64` working copy built first when `real` is asked for).
+    pub(crate) fn blueprint(&mut self, real: bool) -> Result<Blueprint<L::Real>, Error> {
+        if real {
+            if let Some(generic) = self.generic {
+                self.ensure_real(generic)?;
+            }
+        }
+        Ok(Blueprint {
+            slot_names: self.slot_names.clone(),
+            use_generic: self.generic.is_some(),
+            w: self.w.clone(),
+            w_per_output: self.w_per_output.clone(),
+            own: self.own.clone(),
+            real: self.real.clone(),
+            complex: self.complex.clone(),
+            upstream: self.upstream.clone(),
+            movable: self.movable.clone(),
+            amplification: self.amplification.clone(),
+        })
+    }
+
+    /// An engine built from a blueprint, on the calling thread.
+    pub(crate) fn from_blueprint(layer: &'a L, layer_name: &'a str, b: Blueprint<L::Real>) -> Self {
+        Engine {
+            layer,
+            layer_name,
+            slot_names: b.slot_names,
+            generic: if b.use_generic {
+                layer.reference()
+            } else {
+                None
+            },
+            w: b.w,
+            w_per_output: b.w_per_output,
+            own: b.own,
+            real: b.real,
+            complex: b.complex,
+            upstream: b.upstream,
+            movable: b.movable,
+            spread: None,
+            amplification: b.amplification,
+            evals: 0,
+            backward_evals: 0,
+        }
+    }
+
     /// `outputs` are the layer's outputs at `args`; `w` the upstream
     /// weights per output.
     pub(crate) fn new(
