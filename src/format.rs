@@ -18,6 +18,26 @@ pub(crate) fn num(x: f64) -> String {
     }
 }
 
+/// A factor for a sentence, 3 significant digits, plain decimals between
+/// 1e-3 and 1e4 (`0.447`, `2.1`, `1`), scientific notation outside
+/// (`2.50e-5`).
+pub(crate) fn short(x: f64) -> String {
+    if x == 0.0 || !x.is_finite() {
+        return num(x);
+    }
+    let a = x.abs();
+    if !(1e-3..1e4).contains(&a) {
+        return format!("{x:.2e}");
+    }
+    let decimals = (2 - a.log10().floor() as i32).max(0) as usize;
+    let text = format!("{x:.decimals$}");
+    if text.contains('.') {
+        text.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        text
+    }
+}
+
 /// A shape or multi-index as `[2, 3]` (`[]` for rank 0).
 pub(crate) fn shape_string(shape: &[usize]) -> String {
     let parts: Vec<String> = shape.iter().map(usize::to_string).collect();
@@ -60,6 +80,12 @@ mod tests {
         assert_eq!(num(f64::NAN), "NaN");
         assert_eq!(num(f64::NEG_INFINITY), "-inf");
         assert_eq!(err(3.14159e-12), "3.1e-12");
+        assert_eq!(short(0.5), "0.5");
+        assert_eq!(short(2.1), "2.1");
+        assert_eq!(short(1.0), "1");
+        assert_eq!(short(0.447_213_6), "0.447");
+        assert_eq!(short(-12.345), "-12.3");
+        assert_eq!(short(2.5e-5), "2.50e-5");
     }
 
     #[test]

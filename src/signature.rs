@@ -226,14 +226,15 @@ impl Signature {
         Ok(b)
     }
 
-    /// Checks forward outputs against the declared outputs.
+    /// Checks forward outputs against the declared outputs; returns the
+    /// bindings with the outputs' named dims added.
     pub(crate) fn check_outputs<T>(
         &self,
         layer: &str,
         call: &str,
         bindings: &Bindings,
         outputs: &[Tensor<T>],
-    ) -> Result<(), Error> {
+    ) -> Result<Bindings, Error> {
         if outputs.len() != self.outputs.len() {
             return Err(Error::OutputCount {
                 layer: layer.to_string(),
@@ -254,7 +255,7 @@ impl Signature {
                     detail,
                 })?;
         }
-        Ok(())
+        Ok(b)
     }
 
     fn check_self(&self, layer: &str) -> Result<(), Error> {

@@ -15,7 +15,10 @@ use crate::compare::{relative_error, ElementCheck, ElementStatus, JointKink};
 use crate::format::shape_string;
 use crate::tensor::{MultiIndex, Tensor};
 
+mod fingerprints;
 pub(crate) mod summary;
+
+pub(crate) use fingerprints::NamedValues;
 
 /// What kind of backward bug the numbers point to.
 ///
@@ -68,6 +71,55 @@ pub enum Diagnosis {
         /// The swapped axes.
         axes: (usize, usize),
     },
+    /// The analytic gradient matches the numeric one with these axes
+    /// reversed (index i read as n − 1 − i): a kernel flipped as for a true
+    /// convolution, a sequence read backwards.
+    Flipped {
+        /// The reversed axes, ascending.
+        axes: Vec<usize>,
+    },
+    /// An axis split into `blocks` equal blocks, the blocks in another
+    /// order: gate blocks of a recurrent cell swapped, heads mixed up.
+    BlocksPermuted {
+        /// The axis.
+        axis: usize,
+        /// How many equal blocks it is split into (2 to 4).
+        blocks: usize,
+        /// Block j of the gradient holds block `order[j]` of the reference.
+        order: Vec<usize>,
+    },
+    /// One factor per slice along an axis: analytic ≈ c_s·numeric in slice
+    /// s (a per-sample or per-row normalisation left in or left out).
+    ScaledPerSlice {
+        /// The axis whose slices carry one factor each.
+        axis: usize,
+        /// The tensor's rank (rank-2 slices are called rows and columns).
+        rank: usize,
+        /// The factor of each slice; `None` where no element pins it (and
+        /// none is wrong).
+        factors: Vec<Option<f64>>,
+    },
+    /// The analytic gradient is the numeric one multiplied (or divided) by
+    /// the values of another tensor of the layer.
+    ScaledByTensor {
+        /// The tensor whose values are the factors.
+        tensor: String,
+        /// `true` for a division by its values.
+        divided: bool,
+        /// How its values line up with the gradient: `elementwise`,
+        /// `along axis 1`, `elementwise over the last 2 axes`.
+        placement: String,
+    },
+    /// The sign is flipped on part of the tensor and right elsewhere.
+    SignFlippedOn {
+        /// Which elements, e.g. `block 1 of 4 along axis 0`, `column 2`,
+        /// `odd indices of axis 1`, ``where `x` < 0``.
+        subset: String,
+        /// Elements seen flipped.
+        flipped: usize,
+        /// Elements checked.
+        of: usize,
+    },
     /// The gradient's shape is not the tensor's.
     WrongShape {
         /// The tensor's shape.
@@ -103,11 +155,23 @@ pub enum Diagnosis {
         /// Elements checked.
         of: usize,
     },
-    /// Every element is wrong, and no sign, factor or transposition explains
-    /// it: a wrong formula.
+    /// Every element is wrong, and no fingerprint (sign, factor,
+    /// transposition, reversal, block order, slice or tensor factor, sign
+    /// on a subset) explains it: a wrong formula. The numbers that help
+    /// next come with it.
     WrongValues {
         /// Elements checked (all wrong).
         of: usize,
+        /// Pearson's correlation of analytic with numeric over the checked
+        /// elements (NaN when either is constant).
+        #[serde(with = "crate::format::float_text")]
+        correlation: f64,
+        /// The best single factor k (least squares, analytic ≈ k·numeric).
+        #[serde(with = "crate::format::float_text")]
+        factor: f64,
+        /// The share of Σ analytic² that k·numeric leaves unexplained, 0 to 1.
+        #[serde(with = "crate::format::float_text")]
+        unexplained: f64,
     },
     /// A NaN or infinity, and where it first appears.
     NonFinite {
@@ -159,13 +223,28 @@ impl Diagnosis {
     }
 
     /// `true` when the diagnosis names a mechanism (sign, factor,
-    /// transpose, shape, missing, accumulating, shared kink, small
-    /// mismatch...) rather than "these values are wrong".
+    /// transpose, reversal, block order, slice or tensor factor, shape,
+    /// missing, accumulating, shared kink, small mismatch, or a partial
+    /// failure with an index pattern) rather than "these values are
+    /// wrong" (wrong everywhere, a partial failure scattered without
+    /// pattern, kinks).
+    ///
+    /// ```
+    /// use plumbline::Diagnosis;
+    /// assert!(Diagnosis::Flipped { axes: vec![2, 3] }.is_specific());
+    /// let scattered = Diagnosis::Partial {
+    ///     wrong: 3,
+    ///     of: 12,
+    ///     pattern: "scattered, first at [0, 1]".into(),
+    /// };
+    /// assert!(!scattered.is_specific());
+    /// ```
     pub fn is_specific(&self) -> bool {
-        !matches!(
-            self,
-            Diagnosis::WrongValues { .. } | Diagnosis::Partial { .. } | Diagnosis::Kinks { .. }
-        )
+        match self {
+            Diagnosis::Partial { pattern, .. } => !pattern.starts_with(SCATTERED),
+            Diagnosis::WrongValues { .. } | Diagnosis::Kinks { .. } => false,
+            _ => true,
+        }
     }
 }
 
@@ -180,6 +259,58 @@ impl fmt::Display for Diagnosis {
             Diagnosis::Transposed { axes } => {
                 write!(f, "transposed (axes {} and {} swapped)", axes.0, axes.1)
             }
+            Diagnosis::Flipped { axes } => {
+                let list: Vec<String> = axes.iter().map(usize::to_string).collect();
+                let word = if axes.len() == 1 { "axis" } else { "axes" };
+                write!(f, "flipped along {word} {}", list.join(", "))
+            }
+            Diagnosis::BlocksPermuted {
+                axis,
+                blocks,
+                order,
+            } => {
+                let moved: Vec<usize> = (0..order.len()).filter(|&j| order[j] != j).collect();
+                let k = order.len();
+                // Block j holds block j − s: everything moved by s.
+                let shift = (1..k).find(|&s| (0..k).all(|j| order[j] == (j + k - s) % k));
+                if moved.len() == 2 {
+                    write!(
+                        f,
+                        "blocks {} and {} of axis {axis} swapped ({blocks} blocks)",
+                        moved[0], moved[1]
+                    )
+                } else if let Some(s) = shift {
+                    write!(
+                        f,
+                        "blocks of axis {axis} shifted by {s}, cyclically ({blocks} blocks)"
+                    )
+                } else {
+                    let list: Vec<String> = order.iter().map(usize::to_string).collect();
+                    write!(
+                        f,
+                        "blocks of axis {axis} permuted: order {} ({blocks} blocks)",
+                        list.join(", ")
+                    )
+                }
+            }
+            Diagnosis::ScaledPerSlice {
+                axis,
+                rank,
+                factors,
+            } => f.write_str(&fingerprints::per_slice_text(*axis, *rank, factors)),
+            Diagnosis::ScaledByTensor {
+                tensor,
+                divided,
+                placement,
+            } => {
+                let verb = if *divided { "divided" } else { "multiplied" };
+                write!(f, "{verb} by `{tensor}` {placement}")
+            }
+            Diagnosis::SignFlippedOn {
+                subset,
+                flipped,
+                of,
+            } => write!(f, "sign flipped on {subset} ({flipped} of {of})"),
             Diagnosis::WrongShape { expected, returned } => write!(
                 f,
                 "wrong shape: returned {}, expected {}",
@@ -197,11 +328,26 @@ impl fmt::Display for Diagnosis {
                 "small systematic mismatch: {} relative ({wrong} of {of}); an epsilon or constant differs between forward and backward?",
                 crate::format::err(*relative)
             ),
-            Diagnosis::WrongValues { of } => {
+            Diagnosis::WrongValues {
+                of,
+                correlation,
+                factor,
+                unexplained,
+            } => {
                 write!(
                     f,
-                    "wrong everywhere: no sign, factor or transpose fits ({of} of {of})"
-                )
+                    "wrong everywhere ({of} of {of}): no sign, factor, axis order or slice pattern fits; correlation {}",
+                    crate::format::short(*correlation)
+                )?;
+                if factor.is_finite() && unexplained.is_finite() {
+                    write!(
+                        f,
+                        ", best factor {} leaves {:.0}% unexplained",
+                        crate::format::short(*factor),
+                        100.0 * unexplained
+                    )?;
+                }
+                Ok(())
             }
             Diagnosis::NonFinite { place } => write!(f, "non-finite in {place}"),
             Diagnosis::ForwardNotRepeatable { detail } => {
@@ -247,6 +393,9 @@ pub(crate) struct Evidence {
     pub nonfinite_output: Option<String>,
     /// Named sizes from the signature (`batch = 4`), for naming factors.
     pub sizes: Vec<(String, usize)>,
+    /// The layer's argument tensors by name, as plain values, for naming
+    /// a factor or a condition by another tensor.
+    pub tensors: Vec<NamedValues>,
 }
 
 /// Relative agreement needed to name a common factor.
@@ -358,18 +507,47 @@ pub(crate) fn diagnose(
     if let Some(axes) = transposed_match(shape, grad, el) {
         return Some(Diagnosis::Transposed { axes });
     }
+    if let Some(d) = fingerprints::flipped(shape, grad, el) {
+        return Some(d);
+    }
+    if let Some(d) = fingerprints::blocks_permuted(shape, grad, el) {
+        return Some(d);
+    }
     if let Some(d) = small_mismatch(el, &wrong) {
         return Some(d);
     }
-    if wrong.len() == smooth.len() {
-        return Some(Diagnosis::WrongValues { of: wrong.len() });
+    let tensors = &ev.tensors;
+    if let Some(d) = fingerprints::sign_on_subset(shape, &smooth, tensors) {
+        return Some(d);
     }
+    if let Some(d) = fingerprints::scaled_by_tensor(shape, &smooth, tensors) {
+        return Some(d);
+    }
+    if let Some(d) = fingerprints::scaled_per_slice(shape, &smooth) {
+        return Some(d);
+    }
+    if wrong.len() == smooth.len() {
+        let (correlation, factor, unexplained) = fingerprints::guidance(&smooth);
+        return Some(Diagnosis::WrongValues {
+            of: wrong.len(),
+            correlation,
+            factor,
+            unexplained,
+        });
+    }
+    let right: Vec<usize> = el
+        .iter()
+        .filter(|e| !e.status.is_failure() && !e.status.is_kink())
+        .map(|e| e.index)
+        .collect();
     Some(Diagnosis::Partial {
         wrong: wrong.len(),
         of: el.len(),
-        pattern: pattern(
+        pattern: pattern_among(
             shape,
             &wrong.iter().map(|&k| el[k].index).collect::<Vec<_>>(),
+            &right,
+            tensors,
         ),
     })
 }
@@ -426,8 +604,10 @@ fn common_factor(el: &[ElementCheck]) -> Option<f64> {
     fits.then_some(k)
 }
 
-/// Names a factor that is a common culprit: ±2, ±1/2, or a named size N
-/// (or 1/N), e.g. the batch size when a mean was taken instead of a sum.
+/// Names a factor that is a common culprit: a named size N or 1/N (the
+/// batch size when a mean was taken instead of a sum), ±2, ±1/2, √N or
+/// 1/√N of a named size (an attention scale left out or applied twice),
+/// ±√2 or ±1/√2.
 fn culprit(k: f64, sizes: &[(String, usize)]) -> Option<String> {
     let close = |c: f64| ((k - c) / c).abs() < FACTOR_MATCH;
     let sign = if k < 0.0 { "-" } else { "" };
@@ -448,6 +628,23 @@ fn culprit(k: f64, sizes: &[(String, usize)]) -> Option<String> {
         if close(c) {
             return Some(text.to_string());
         }
+    }
+    for &(ref name, n) in sizes {
+        if n > 2 {
+            let root = (n as f64).sqrt();
+            if close_abs(root) {
+                return Some(format!("{sign}√N (N = {name} = {n})"));
+            }
+            if close_abs(1.0 / root) {
+                return Some(format!("{sign}1/√N (N = {name} = {n})"));
+            }
+        }
+    }
+    if close_abs(std::f64::consts::SQRT_2) {
+        return Some(format!("{sign}√2"));
+    }
+    if close_abs(std::f64::consts::FRAC_1_SQRT_2) {
+        return Some(format!("{sign}1/√2"));
     }
     None
 }
@@ -488,6 +685,33 @@ fn transposed_match(
         }
     }
     None
+}
+
+/// How [`pattern`] starts when the wrong elements follow no pattern.
+const SCATTERED: &str = "scattered";
+
+/// Describes where the wrong elements are among the checked ones: the
+/// slice and diagonal patterns of [`pattern`], then an index condition
+/// that separates them from the right ones (`right`, flat) exactly.
+fn pattern_among(
+    shape: &[usize],
+    wrong: &[usize],
+    right: &[usize],
+    tensors: &[NamedValues],
+) -> String {
+    let found = pattern(shape, wrong);
+    if !found.starts_with(SCATTERED) {
+        return found;
+    }
+    let multi = |v: &[usize]| -> Vec<Vec<usize>> {
+        v.iter()
+            .map(|&j| MultiIndex::from_flat(shape, j).0)
+            .collect()
+    };
+    match fingerprints::describe(shape, &multi(wrong), &multi(right), tensors) {
+        Some(d) => d,
+        None => found,
+    }
 }
 
 /// Describes where the wrong elements are.
@@ -543,7 +767,7 @@ fn pattern(shape: &[usize], wrong: &[usize]) -> String {
             format!("{whole}{word} {v} ({which} of axis {axis})")
         };
     }
-    format!("scattered, first at {}", MultiIndex(idx[0].clone()))
+    format!("{SCATTERED}, first at {}", MultiIndex(idx[0].clone()))
 }
 
 #[cfg(test)]

@@ -12,8 +12,8 @@ planted_bugs! {
     EmbeddingBug {
         /// A repeated id overwrites the row's gradient instead of adding to it.
         RepeatsOverwrite = "repeats-overwrite" => ("table", Kind::WrongFormula),
-        /// The gradient is scattered to row id + 1 (index off by one).
-        RowOffByOne = "row-off-by-one" => ("table", Kind::WrongFormula),
+        /// The gradient is scattered to row (id + 1) mod vocabulary (index off by one, wrapping).
+        RowOffByOne = "row-off-by-one" => ("table", Kind::BlocksPermuted(0)),
         /// The gradient is averaged over the tokens although the forward does not average.
         MeanOverTokens = "mean-over-tokens" => ("table", Kind::Scaled(0.2)),
         /// The table gradient is added into a buffer kept between calls and the buffer returned.

@@ -164,13 +164,28 @@ pub enum Kind {
     ScaledAny,
     /// [`Diagnosis::Transposed`].
     Transposed,
+    /// [`Diagnosis::Flipped`] along exactly these axes.
+    Flipped(&'static [usize]),
+    /// [`Diagnosis::BlocksPermuted`] along this axis.
+    BlocksPermuted(usize),
+    /// [`Diagnosis::ScaledPerSlice`] along this axis.
+    ScaledPerSlice(usize),
+    /// [`Diagnosis::ScaledByTensor`] naming this tensor.
+    ScaledByTensor(&'static str),
+    /// [`Diagnosis::SignFlippedOn`] a subset described by these words.
+    SignFlippedOn(&'static str),
     /// [`Diagnosis::WrongShape`].
     WrongShape,
     /// [`Diagnosis::Missing`].
     Missing,
+    /// [`Diagnosis::AllZero`]: a gradient returned but never written.
+    AllZero,
+    /// [`Diagnosis::Partial`]: only the elements where an index condition
+    /// holds are wrong (specific when the pattern is found).
+    Partial,
     /// A wrong formula: [`Diagnosis::Partial`] (some elements wrong) or
-    /// [`Diagnosis::WrongValues`] (every element, with no sign, factor or
-    /// transpose pattern): the honest answer when nothing simpler fits.
+    /// [`Diagnosis::WrongValues`] (every element, with no fingerprint that
+    /// fits): the honest answer when nothing simpler fits.
     WrongFormula,
     /// [`Diagnosis::SharedKink`]: tied elements handed one gradient each.
     SharedKink,
@@ -195,12 +210,51 @@ impl Kind {
             (Kind::Scaled(k), Diagnosis::Scaled { factor, .. }) => ((factor - k) / k).abs() < 1e-3,
             (Kind::ScaledAny, Diagnosis::Scaled { .. }) => true,
             (Kind::Transposed, Diagnosis::Transposed { .. }) => true,
+            (Kind::Flipped(want), Diagnosis::Flipped { axes }) => axes.as_slice() == want,
+            (Kind::BlocksPermuted(want), Diagnosis::BlocksPermuted { axis, .. }) => *axis == want,
+            (Kind::ScaledPerSlice(want), Diagnosis::ScaledPerSlice { axis, .. }) => *axis == want,
+            (Kind::ScaledByTensor(want), Diagnosis::ScaledByTensor { tensor, .. }) => {
+                tensor == want
+            }
+            (Kind::SignFlippedOn(want), Diagnosis::SignFlippedOn { subset, .. }) => subset == want,
             (Kind::WrongShape, Diagnosis::WrongShape { .. }) => true,
             (Kind::Missing, Diagnosis::Missing) => true,
+            (Kind::AllZero, Diagnosis::AllZero) => true,
+            (Kind::Partial, Diagnosis::Partial { .. }) => true,
             (Kind::WrongFormula, Diagnosis::Partial { .. } | Diagnosis::WrongValues { .. }) => true,
             (Kind::SharedKink, Diagnosis::SharedKink { .. }) => true,
             (Kind::Accumulates, Diagnosis::BackwardAccumulates { .. }) => true,
             _ => false,
+        }
+    }
+
+    /// The family of the mechanism, for counting: `sign` (the whole tensor
+    /// or a subset negated), `scale` (one factor, one per slice, or another
+    /// tensor's values), `transpose` (the right values in the wrong places:
+    /// transposed, flipped, blocks permuted), `missing` (no gradient, or
+    /// one never written), `partial` (only where an index condition holds),
+    /// `shape`, `formula` (a wrong formula, nothing simpler fits), `kink`
+    /// and `state` (a backward that accumulates).
+    ///
+    /// ```
+    /// use plumbline::gallery::Kind;
+    /// assert_eq!(Kind::Flipped(&[2]).family(), "transpose");
+    /// assert_eq!(Kind::ScaledByTensor("gamma").family(), "scale");
+    /// ```
+    pub fn family(self) -> &'static str {
+        match self {
+            Kind::SignFlipped | Kind::SignFlippedOn(_) => "sign",
+            Kind::Scaled(_)
+            | Kind::ScaledAny
+            | Kind::ScaledPerSlice(_)
+            | Kind::ScaledByTensor(_) => "scale",
+            Kind::Transposed | Kind::Flipped(_) | Kind::BlocksPermuted(_) => "transpose",
+            Kind::Missing | Kind::AllZero => "missing",
+            Kind::Partial => "partial",
+            Kind::WrongShape => "shape",
+            Kind::WrongFormula => "formula",
+            Kind::SharedKink => "kink",
+            Kind::Accumulates => "state",
         }
     }
 }

@@ -59,7 +59,7 @@ planted_bugs! {
         /// The factor 1/2 of the square root's derivative is forgotten: the projection term doubles.
         ForgotHalf = "forgot-half" => ("x", Kind::WrongFormula),
         /// The scale gradient multiplies g by the output (which already contains γ).
-        GammaFromOutput = "gamma-from-output" => ("gamma", Kind::WrongFormula),
+        GammaFromOutput = "gamma-from-output" => ("gamma", Kind::ScaledByTensor("gamma")),
         /// The projection term uses a sum over the features instead of a mean.
         SumInsteadOfMean = "sum-instead-of-mean" => ("x", Kind::WrongFormula),
     }
