@@ -11,7 +11,7 @@ use std::collections::HashSet;
 use plumbline::gallery::{
     judge, registry, Case, LayerNorm, MaxPool2d, MaxPoolBug, SoftmaxCrossEntropy,
 };
-use plumbline::{Args, Audit, Forward, Layer, Scheme, Tensor};
+use plumbline::{Args, Audit, Diagnosis, Forward, Layer, Scheme, Tensor};
 
 /// Random cases per correct layer and precision.
 const CASES: u64 = 300;
@@ -87,6 +87,12 @@ false_alarm_tests! {
     no_false_alarms_gelu_f32: "gelu", "f32";
     no_false_alarms_residual_f64: "residual", "f64";
     no_false_alarms_residual_f32: "residual", "f32";
+    no_false_alarms_conv1d_f64: "conv1d", "f64";
+    no_false_alarms_conv1d_f32: "conv1d", "f32";
+    no_false_alarms_lstm_cell_f64: "lstm-cell", "f64";
+    no_false_alarms_lstm_cell_f32: "lstm-cell", "f32";
+    no_false_alarms_bilinear_f64: "bilinear", "f64";
+    no_false_alarms_bilinear_f32: "bilinear", "f32";
 }
 
 /// Argument draws (and audit seeds) per planted bug.
@@ -125,6 +131,85 @@ fn every_planted_bug_is_detected_with_the_expected_diagnosis() {
     assert!(problems.is_empty(), "{}", problems.join("\n"));
 }
 
+/// The families whose mechanism the diagnosis must name (the bar of the
+/// fingerprint work): at least this share of their planted bugs, over
+/// every seed, gets a specific diagnosis of the expected kind.
+const NAMED_FAMILIES: [&str; 5] = ["sign", "scale", "transpose", "missing", "partial"];
+const NAMED_SHARE: f64 = 0.9;
+
+#[test]
+fn structured_bugs_get_a_specific_diagnosis_naming_their_mechanism() {
+    let mut counts: std::collections::BTreeMap<&str, (usize, usize)> = Default::default();
+    let mut misses = Vec::new();
+    for case in registry() {
+        let Some(bug) = case.bug else { continue };
+        let family = bug.expect.kind.family();
+        if !NAMED_FAMILIES.contains(&family) {
+            continue;
+        }
+        for seed in BUG_SEEDS {
+            let report = case.subject(seed).audit(&Audit::new().seed(seed)).unwrap();
+            let outcome = judge(&bug.expect, &report);
+            let specific = report
+                .row(bug.expect.tensor)
+                .and_then(|r| r.diagnosis.as_ref())
+                .is_some_and(|d| d.is_specific());
+            let entry = counts.entry(family).or_default();
+            entry.0 += 1;
+            if outcome.right_diagnosis && specific {
+                entry.1 += 1;
+            } else {
+                misses.push(format!("{} (seed {seed}): {}", case.label(), outcome.said));
+            }
+        }
+    }
+    for family in NAMED_FAMILIES {
+        let (planted, named) = counts.get(family).copied().unwrap_or_default();
+        assert!(
+            planted >= 2 * BUG_SEEDS.len(),
+            "{family}: only {planted} audits"
+        );
+        assert!(
+            named as f64 >= NAMED_SHARE * planted as f64,
+            "{family}: {named} of {planted} named; misses:\n{}",
+            misses.join("\n")
+        );
+    }
+}
+
+#[test]
+fn formula_bugs_never_get_a_wrong_mechanism() {
+    // On the tensor it corrupts, a wrong formula may read "wrong
+    // everywhere" or "partial" (with the place where it is wrong), never a
+    // sign, factor, permutation or slice mechanism it does not have. (Other
+    // rows may show a true one: a variance taken with 1/(d − 1) scales the
+    // γ gradient by exactly √((d − 1)/d).)
+    for case in registry() {
+        let Some(bug) = case.bug else { continue };
+        if bug.expect.kind.family() != "formula" {
+            continue;
+        }
+        for seed in BUG_SEEDS {
+            let report = case.subject(seed).audit(&Audit::new().seed(seed)).unwrap();
+            if let Some(row) = report.row(bug.expect.tensor) {
+                let d = row.diagnosis.as_ref().expect("a failing row is diagnosed");
+                let generic = matches!(
+                    d,
+                    Diagnosis::WrongValues { .. }
+                        | Diagnosis::Partial { .. }
+                        | Diagnosis::SmallMismatch { .. }
+                );
+                assert!(
+                    generic,
+                    "{} (seed {seed}), row `{}`: {d}\n{report}",
+                    case.label(),
+                    row.name
+                );
+            }
+        }
+    }
+}
+
 #[test]
 fn max_pool_ties_to_every_max_is_detected() {
     let layer = MaxPool2d::<f64>::new(Some(MaxPoolBug::TiesToEveryMax));
@@ -150,7 +235,7 @@ fn correct_max_pool_passes_at_ties() {
 fn registry_is_complete_and_consistent() {
     let all = registry();
     let bugs: Vec<&Case> = all.iter().filter(|c| c.bug.is_some()).collect();
-    assert!(bugs.len() >= 60, "{} planted bugs", bugs.len());
+    assert!(bugs.len() >= 85, "{} planted bugs", bugs.len());
     let mut seen = HashSet::new();
     for c in &bugs {
         let b = c.bug.unwrap();
@@ -158,7 +243,7 @@ fn registry_is_complete_and_consistent() {
         assert!(b.description.len() > 20, "{}: {}", c.label(), b.description);
     }
     let layers: HashSet<&str> = all.iter().map(|c| c.layer).collect();
-    assert_eq!(layers.len(), 13, "{layers:?}");
+    assert_eq!(layers.len(), 16, "{layers:?}");
     // Every layer has a correct f32 case; generic ones also an f64 case, and
     // at least three are f32-only (audited with Ridders' method in f32).
     for layer in &layers {

@@ -23,6 +23,8 @@ planted_bugs! {
         HeadsMixed = "heads-mixed" => ("wq", Kind::WrongFormula),
         /// The key gradient is negated.
         KeySignFlipped = "key-sign-flipped" => ("wk", Kind::SignFlipped),
+        /// The query gradient's loop over heads stops one short, so the last head's rows get nothing.
+        LastHeadSkipped = "last-head-skipped" => ("wq", Kind::Partial),
     }
 }
 
@@ -182,10 +184,12 @@ impl<R: Real> Layer for Attention<R> {
             for r in 0..t {
                 for e in 0..dh {
                     let qe = cols.0 + e;
-                    dq[r * d + qe] = (0..t)
-                        .map(|b| ds[r * t + b] * k[b * d + key_shift + e])
-                        .sum::<R>()
-                        / score_scale;
+                    if bug != Some(AttentionBug::LastHeadSkipped) || h + 1 < heads {
+                        dq[r * d + qe] = (0..t)
+                            .map(|b| ds[r * t + b] * k[b * d + key_shift + e])
+                            .sum::<R>()
+                            / score_scale;
+                    }
                     dk[r * d + qe] =
                         (0..t).map(|b| ds[b * t + r] * q[b * d + qe]).sum::<R>() / score_scale;
                 }

@@ -21,6 +21,8 @@ planted_bugs! {
         KernelFlipped = "kernel-flipped" => ("x", Kind::WrongFormula),
         /// The bias gradient sums only the first output position of each map.
         BiasFirstPosition = "bias-first-position" => ("b", Kind::WrongFormula),
+        /// The weight gradient is accumulated at the kernel position flipped in both directions.
+        WeightGradientFlipped = "weight-gradient-flipped" => ("w", Kind::Flipped(&[2, 3])),
     }
 }
 
@@ -146,13 +148,18 @@ impl<R: Real> Layer for Conv2d<R> {
                             for u in 0..g.k {
                                 for v in 0..g.k {
                                     let wi = ((o * g.c + c) * g.k + u) * g.k + v;
+                                    let dwi = if bug == Some(Conv2dBug::WeightGradientFlipped) {
+                                        ((o * g.c + c) * g.k + (g.k - 1 - u)) * g.k + (g.k - 1 - v)
+                                    } else {
+                                        wi
+                                    };
                                     // Weight gradient.
                                     let shift = usize::from(bug == Some(Conv2dBug::IndexOffByOne));
                                     if let (Some(r), Some(q)) = (
                                         self.source(i, u, g.h, s, p),
                                         self.source(j, v + shift, g.w, s, p),
                                     ) {
-                                        dw[wi] += gy * xd[((n * g.c + c) * g.h + r) * g.w + q];
+                                        dw[dwi] += gy * xd[((n * g.c + c) * g.h + r) * g.w + q];
                                     }
                                     // Input gradient.
                                     let wk = if bug == Some(Conv2dBug::KernelFlipped) {

@@ -21,6 +21,10 @@ planted_bugs! {
         HiddenMissing = "hidden-missing" => ("h", Kind::Missing),
         /// The recurrent weight gradient is returned transposed, [hidden, 3·hidden].
         RecurrentTransposed = "recurrent-transposed" => ("wh", Kind::Transposed),
+        /// The update gate's gradient uses c − h instead of h − c (the sign of ∂h'/∂z lost).
+        UpdateSignFlipped = "update-sign-flipped" => ("wx", Kind::SignFlippedOn("block 1 of 3 along axis 0")),
+        /// The recurrent weight gradient writes the reset and update gate blocks in each other's place.
+        GateBlocksSwapped = "gate-blocks-swapped" => ("wh", Kind::BlocksPermuted(0)),
     }
 }
 
@@ -127,7 +131,11 @@ impl<R: Real> Layer for GruCell<R> {
                 let cand = (s.ax[ci] + rg * s.ah[ci]).tanh();
                 let gh = g[hidx];
                 let dc = gh * (one - z);
-                let dz = gh * (h[hidx] - cand);
+                let dz = if self.bug == Some(GruBug::UpdateSignFlipped) {
+                    gh * (cand - h[hidx])
+                } else {
+                    gh * (h[hidx] - cand)
+                };
                 dh[hidx] = if self.bug == Some(GruBug::GateSwapped) {
                     gh * (one - z)
                 } else {
@@ -165,8 +173,13 @@ impl<R: Real> Layer for GruCell<R> {
                     dwx[q * i + k] += da * x[r * i + k];
                     dx[r * i + k] += da * wx[q * i + k];
                 }
+                // The gate block q is written to (a planted bug moves it).
+                let qh = match self.bug {
+                    Some(GruBug::GateBlocksSwapped) if q < 2 * hd => (q + hd) % (2 * hd),
+                    _ => q,
+                };
                 for k in 0..hd {
-                    dwh[q * hd + k] += dhh * h[r * hd + k];
+                    dwh[qh * hd + k] += dhh * h[r * hd + k];
                     dh[r * hd + k] += dhh * wh[q * hd + k];
                 }
             }

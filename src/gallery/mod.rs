@@ -27,6 +27,9 @@
 //! | GRU cell | [`GruCell`](crate::gallery::GruCell) | yes | [`GruBug`](crate::gallery::GruBug) |
 //! | GELU (erf form) | [`Gelu`](crate::gallery::Gelu) | `f32` only | [`GeluBug`](crate::gallery::GeluBug) |
 //! | residual block `x + gelu(x·wᵀ + b)` | [`Residual`](crate::gallery::Residual) | yes | [`ResidualBug`](crate::gallery::ResidualBug) |
+//! | 1-D convolution | [`Conv1d`](crate::gallery::Conv1d) | yes | [`Conv1dBug`](crate::gallery::Conv1dBug) |
+//! | LSTM cell | [`LstmCell`](crate::gallery::LstmCell) | yes | [`LstmBug`](crate::gallery::LstmBug) |
+//! | bilinear layer | [`Bilinear`](crate::gallery::Bilinear) | yes | [`BilinearBug`](crate::gallery::BilinearBug) |
 //!
 //! Generic layers implement [`GenericForward`](crate::GenericForward) for
 //! `Real = f32` and `Real = f64`, so the audit uses complex-step
@@ -60,11 +63,14 @@ use crate::scalar::{Real, Scalar};
 use crate::tensor::Tensor;
 
 mod attention;
+mod bilinear;
 mod conv;
+mod conv1d;
 mod dense;
 mod embedding;
 mod gelu;
 mod gru;
+mod lstm;
 mod norm;
 mod pool;
 pub mod programs;
@@ -72,11 +78,14 @@ mod residual;
 mod softmax;
 
 pub use attention::{Attention, AttentionBug};
+pub use bilinear::{Bilinear, BilinearBug};
 pub use conv::{Conv2d, Conv2dBug};
+pub use conv1d::{Conv1d, Conv1dBug};
 pub use dense::{Dense, DenseBug};
 pub use embedding::{Embedding, EmbeddingBug};
 pub use gelu::{gelu, gelu_derivative, Gelu, GeluBug};
 pub use gru::{GruBug, GruCell};
+pub use lstm::{LstmBug, LstmCell};
 pub use norm::{BatchNorm, BatchNormBug, LayerNorm, LayerNormBug, RmsNorm, RmsNormBug};
 pub use pool::{AvgPool2d, AvgPoolBug, MaxPool2d, MaxPoolBug};
 pub use residual::{Residual, ResidualBug};
@@ -361,6 +370,9 @@ pub fn registry() -> Vec<Case> {
     gru::register(&mut out);
     gelu::register(&mut out);
     residual::register(&mut out);
+    conv1d::register(&mut out);
+    lstm::register(&mut out);
+    bilinear::register(&mut out);
     out
 }
 

@@ -32,6 +32,10 @@ planted_bugs! {
         GammaMeanOverBatch = "gamma-mean-over-batch" => ("gamma", Kind::Scaled(1.0 / 3.0)),
         /// The forward caches mean and σ from its first call and reuses them on later calls.
         StaleStatistics = "stale-statistics" => ("x", Kind::WrongFormula),
+        /// The shift gradient is multiplied by γ, as if β sat inside the scale: dβ = Σ g·γ.
+        BetaTimesGamma = "beta-times-gamma" => ("beta", Kind::ScaledByTensor("gamma")),
+        /// The input gradient leaves out the final division by σ of each row.
+        SigmaLeftOut = "sigma-left-out" => ("x", Kind::ScaledPerSlice(0)),
     }
 }
 
@@ -48,6 +52,8 @@ planted_bugs! {
         BetaFirstSampleOnly = "beta-first-sample-only" => ("beta", Kind::WrongFormula),
         /// The backward recomputes σ without ε.
         EpsilonLeftOut = "epsilon-left-out" => ("x", Kind::WrongFormula),
+        /// The input gradient multiplies by γ a second time (gy = g·γ, then dx scaled by γ again).
+        GammaAppliedTwice = "gamma-applied-twice" => ("x", Kind::ScaledByTensor("gamma")),
     }
 }
 
@@ -62,6 +68,10 @@ planted_bugs! {
         GammaFromOutput = "gamma-from-output" => ("gamma", Kind::ScaledByTensor("gamma")),
         /// The projection term uses a sum over the features instead of a mean.
         SumInsteadOfMean = "sum-instead-of-mean" => ("x", Kind::WrongFormula),
+        /// The input gradient leaves out the final division by each row's RMS.
+        RmsLeftOut = "rms-left-out" => ("x", Kind::ScaledPerSlice(0)),
+        /// The final division uses the L2 norm √(Σx² + d·ε) instead of the RMS √(mean(x²) + ε).
+        NormNotRms = "norm-not-rms" => ("x", Kind::Scaled(0.447_213_595_499_958)),
     }
 }
 
@@ -229,7 +239,7 @@ impl<R: Real> Layer for LayerNorm<R> {
             .enumerate()
             .map(|(i, &v)| v * gamma.data()[i % d])
             .collect();
-        let dx = normalise_backward(
+        let mut dx = normalise_backward(
             &gy,
             &yhat,
             &groups,
@@ -237,6 +247,11 @@ impl<R: Real> Layer for LayerNorm<R> {
             bug != Some(LayerNormBug::MissingMeanTerm),
             bug != Some(LayerNormBug::MissingVarianceTerm),
         );
+        if bug == Some(LayerNormBug::SigmaLeftOut) {
+            for (i, v) in dx.iter_mut().enumerate() {
+                *v *= stats[i / d].1;
+            }
+        }
         let by = if bug == Some(LayerNormBug::GammaFromInput) {
             x.data()
         } else {
@@ -245,6 +260,11 @@ impl<R: Real> Layer for LayerNorm<R> {
         let (mut dgamma, mut dbeta) = scale_shift_backward(g, by, d);
         if bug == Some(LayerNormBug::BetaSignFlipped) {
             dbeta.iter_mut().for_each(|v| *v = -*v);
+        }
+        if bug == Some(LayerNormBug::BetaTimesGamma) {
+            for (v, &gm) in dbeta.iter_mut().zip(gamma.data()) {
+                *v *= gm;
+            }
         }
         if bug == Some(LayerNormBug::GammaMeanOverBatch) {
             let nn = R::from_f64(n as f64);
@@ -368,6 +388,12 @@ impl<R: Real> Layer for BatchNorm<R> {
                 true,
             ),
         };
+        let mut dx = dx;
+        if bug == Some(BatchNormBug::GammaAppliedTwice) {
+            for (i, v) in dx.iter_mut().enumerate() {
+                *v *= gamma.data()[i % d];
+            }
+        }
         let (dgamma, mut dbeta) = scale_shift_backward(g, &yhat, d);
         if bug == Some(BatchNormBug::BetaFirstSampleOnly) {
             dbeta = g[..d].to_vec();
@@ -422,9 +448,9 @@ impl<R: Real> RmsNorm<R> {
         }
     }
 
-    /// Random arguments: batch 3, 4 features; γ in [0.5, 1.5].
+    /// Random arguments: batch 3, 5 features; γ in [0.5, 1.5].
     pub fn args(seed: u64) -> Args<R> {
-        let (inputs, mut params) = norm_args::<R>(seed, 3, 4).into_parts();
+        let (inputs, mut params) = norm_args::<R>(seed, 3, 5).into_parts();
         params.truncate(1);
         Args::new(inputs, params)
     }
@@ -467,8 +493,17 @@ impl<R: Real> Layer for RmsNorm<R> {
         for (row, &r_row) in r.iter().enumerate().take(n) {
             let span = row * d..(row + 1) * d;
             let m = span.clone().map(|i| gy[i] * xhat[i]).sum::<R>() / R::from_f64(d as f64);
+            // The divisor as the backward computes it (bugs change it only).
+            let divisor = match self.bug {
+                Some(RmsNormBug::RmsLeftOut) => R::one(),
+                Some(RmsNormBug::NormNotRms) => {
+                    let ss = span.clone().map(|i| xd[i] * xd[i]).sum::<R>();
+                    (ss + R::from_f64(d as f64 * NORM_EPS)).sqrt()
+                }
+                _ => r_row,
+            };
             for i in span {
-                dx[i] = (gy[i] - projection * xhat[i] * m) / r_row;
+                dx[i] = (gy[i] - projection * xhat[i] * m) / divisor;
             }
         }
         let by: Vec<R> = if self.bug == Some(RmsNormBug::GammaFromOutput) {
