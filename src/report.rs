@@ -177,7 +177,9 @@ pub struct Screen {
     /// The bound that applied there.
     #[serde(with = "crate::format::float_text")]
     pub bound: f64,
-    /// Elements the bisection located and compared one by one.
+    /// Elements the bisection located and compared one by one (0 when a
+    /// seeded sample already showed disagreeing elements, or the screen
+    /// agreed).
     pub located: usize,
 }
 

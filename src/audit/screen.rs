@@ -111,9 +111,16 @@ pub(crate) fn screen<L: Forward + ?Sized>(
     let suspects = match failed {
         None => Vec::new(),
         Some(v) => {
-            let mut found = bisect(engine, t, &support, &v, &rounding, tol, layer_eps)?;
-            let located = found.len();
-            found.extend(sample(&support, seed ^ t.slot as u64));
+            // A seeded sample first, each element along its own axis: a
+            // bug that touches many elements shows there, and the
+            // bisection is only needed for one that touches few.
+            let mut found = sample(&support, seed ^ t.slot as u64);
+            let mut located = 0;
+            if !any_disagrees(engine, t, &support, &found, &rounding, tol, layer_eps)? {
+                let narrowed = bisect(engine, t, &support, &v, &rounding, tol, layer_eps)?;
+                located = narrowed.len();
+                found.extend(narrowed);
+            }
             found.sort_unstable();
             found.dedup();
             let w = worst.unwrap_or(Check {
@@ -202,6 +209,28 @@ fn along<L: Forward + ?Sized>(
     })
 }
 
+/// `true` if any of the elements `picks` disagrees on its own (its axis as
+/// the direction).
+fn any_disagrees<L: Forward + ?Sized>(
+    engine: &mut Engine<'_, L>,
+    t: &Target<'_>,
+    support: &[usize],
+    picks: &[usize],
+    rounding: &[f64],
+    tol: &Tolerance,
+    layer_eps: f64,
+) -> Result<bool, Error> {
+    for &j in picks {
+        let Ok(k) = support.binary_search(&j) else {
+            continue;
+        };
+        if !along(engine, t, &[j], &[1.0], &rounding[k..=k], tol, layer_eps)?.agrees() {
+            return Ok(true);
+        }
+    }
+    Ok(false)
+}
+
 /// Splits the elements along a failed direction in halves, keeps the
 /// halves that still disagree (at most [`BRANCHES`] per level, the worst
 /// first), and returns the elements of the pieces of at most [`LEAF`]
@@ -287,15 +316,21 @@ pub(crate) fn note(name: &str, s: &Screen, len: usize) -> String {
             s.directions
         )
     } else {
+        let how = if s.located == 0 {
+            "a seeded sample compared one by one shows where".to_string()
+        } else {
+            format!(
+                "{} elements located by bisection, and a seeded sample, compared one by one",
+                s.located
+            )
+        };
         format!(
-            "`{name}`: screen disagrees along {} of {} random directions (⟨gradient, v⟩ = {}, derivative {}, bound {}); \
-             {} elements located by bisection and a sample compared one by one",
+            "`{name}`: screen disagrees along {} of {} random directions (⟨gradient, v⟩ = {}, derivative {}, bound {}); {how}",
             s.disagreeing,
             s.directions,
             num(s.analytic),
             num(s.numeric),
             num(s.bound),
-            s.located
         )
     }
 }

@@ -1,0 +1,289 @@
+//! What an audit costs as layers grow, and what the directional screen
+//! buys: the audit's overhead over the forwards it makes, the speed-up on
+//! two threads, and the screen of million-parameter layers (cost, planted
+//! bugs caught, false alarms).
+//!
+//! Run: `cargo bench --bench scale` (a few minutes on 2 cores; `-- --quick`
+//! for a smoke run). Prints the figures and writes `target/bench-scale.json`
+//! (under `CARGO_TARGET_DIR` if set). The layer is a frost-risk model of an
+//! orchard: a dense tanh layer from station readings to zones.
+
+use std::path::PathBuf;
+use std::time::Instant;
+
+use plumbline::audit::Coverage;
+use plumbline::prelude::*;
+use plumbline::scalar::ComplexStep;
+use serde_json::json;
+
+#[derive(Clone, Copy, Debug, PartialEq)]
+enum Bug {
+    None,
+    /// dW negated.
+    Sign,
+    /// dW doubled.
+    Factor,
+    /// dW transposed (square W).
+    Transpose,
+    /// Row 7 of dW scaled by 1.1.
+    OneRow,
+    /// One element of dW off by half its value plus 0.01.
+    OneElement,
+    /// The tanh′ factor left out of every gradient.
+    MissingTerm,
+}
+
+const BUGS: [Bug; 6] = [
+    Bug::Sign,
+    Bug::Factor,
+    Bug::Transpose,
+    Bug::OneRow,
+    Bug::OneElement,
+    Bug::MissingTerm,
+];
+
+/// y = tanh(W·x + b) for a batch of readings x.
+struct Zones {
+    bug: Bug,
+}
+
+impl Layer for Zones {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new()
+            .input("x", "batch, station")
+            .param("w", "zone, station")
+            .param("b", "zone")
+            .output("y", "batch, zone")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let (x, w, b) = (a.input(0).data(), a.param(0).data(), a.param(1).data());
+        let (n, i) = (a.input(0).shape()[0], a.input(0).shape()[1]);
+        let o = a.param(0).shape()[0];
+        let g = up[0].data();
+        let mut dpre = vec![0.0; n * o];
+        for s in 0..n {
+            for r in 0..o {
+                let row = &w[r * i..(r + 1) * i];
+                let xs = &x[s * i..(s + 1) * i];
+                let z = b[r] + row.iter().zip(xs).map(|(w, x)| w * x).sum::<f64>();
+                let t = z.tanh();
+                let local = if self.bug == Bug::MissingTerm { 1.0 } else { 1.0 - t * t };
+                dpre[s * o + r] = g[s * o + r] * local;
+            }
+        }
+        let (mut dx, mut dw, mut db) = (vec![0.0; n * i], vec![0.0; o * i], vec![0.0; o]);
+        for s in 0..n {
+            for r in 0..o {
+                let d = dpre[s * o + r];
+                db[r] += d;
+                for k in 0..i {
+                    dw[r * i + k] += d * x[s * i + k];
+                    dx[s * i + k] += d * w[r * i + k];
+                }
+            }
+        }
+        match self.bug {
+            Bug::Sign => dw.iter_mut().for_each(|v| *v = -*v),
+            Bug::Factor => dw.iter_mut().for_each(|v| *v *= 2.0),
+            Bug::Transpose => {
+                let c = dw.clone();
+                for r in 0..o {
+                    for k in 0..i {
+                        dw[r * i + k] = c[k * o + r];
+                    }
+                }
+            }
+            Bug::OneRow => dw[7 * i..8 * i].iter_mut().for_each(|v| *v *= 1.1),
+            Bug::OneElement => dw[3 * i + 5] = dw[3 * i + 5] * 1.5 + 0.01,
+            Bug::None | Bug::MissingTerm => {}
+        }
+        let t = |shape: Vec<usize>, v| Tensor::new(shape, v).ok();
+        Gradients::from(vec![t(vec![n, i], dx), t(vec![o, i], dw), t(vec![o], db)])
+    }
+}
+
+impl GenericForward for Zones {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, w, b) = (a.input(0).data(), a.param(0).data(), a.param(1).data());
+        let (n, i) = (a.input(0).shape()[0], a.input(0).shape()[1]);
+        let o = a.param(0).shape()[0];
+        let mut y = Vec::with_capacity(n * o);
+        for s in 0..n {
+            for r in 0..o {
+                let row = &w[r * i..(r + 1) * i];
+                let xs = &x[s * i..(s + 1) * i];
+                let z = row.iter().zip(xs).fold(b[r], |z, (w, x)| z + *w * *x);
+                y.push(z.tanh());
+            }
+        }
+        vec![Tensor::from_fn(vec![n, o], |ix| y[ix[0] * o + ix[1]])]
+    }
+}
+
+/// Demo readings: a pseudo-random pattern per seed, weights scaled by
+/// 1/√stations so the tanh is not saturated.
+fn args(seed: u64, batch: usize, stations: usize, zones: usize) -> Args<f64> {
+    let mut state = seed.wrapping_mul(0x9E37_79B9_7F4A_7C15) | 1;
+    let mut next = move || {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        (state >> 11) as f64 / (1u64 << 53) as f64 * 2.0 - 1.0
+    };
+    let scale = 1.0 / (stations as f64).sqrt();
+    let x = Tensor::from_fn(vec![batch, stations], |_| next());
+    let w = Tensor::from_fn(vec![zones, stations], |_| next() * scale);
+    let b = Tensor::from_fn(vec![zones], |_| next() * 0.1);
+    Args::new(vec![x], vec![w, b])
+}
+
+fn median(mut v: Vec<f64>) -> f64 {
+    v.sort_by(f64::total_cmp);
+    v[v.len() / 2]
+}
+
+/// Median seconds of one forward of the layer in complex-step numbers and
+/// in `f64`, measured in this process.
+fn forward_times(a: &Args<f64>, reps: usize) -> (f64, f64) {
+    let layer = Zones { bug: Bug::None };
+    let complex = a.map(|v| ComplexStep::real(v));
+    let time = |f: &dyn Fn()| {
+        median(
+            (0..reps)
+                .map(|_| {
+                    let t = Instant::now();
+                    f();
+                    t.elapsed().as_secs_f64()
+                })
+                .collect(),
+        )
+    };
+    let c = time(&|| {
+        std::hint::black_box(layer.forward_generic(std::hint::black_box(&complex)));
+    });
+    let r = time(&|| {
+        std::hint::black_box(layer.forward_generic(std::hint::black_box(a)));
+    });
+    (c, r)
+}
+
+fn target_dir() -> PathBuf {
+    std::env::var_os("CARGO_TARGET_DIR")
+        .map(PathBuf::from)
+        .unwrap_or_else(|| PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("target"))
+}
+
+fn main() {
+    let quick = std::env::args().any(|a| a == "--quick");
+    let layer = Zones { bug: Bug::None };
+
+    // --- overhead and threads: a layer of 5,544 elements, every element.
+    let (batch, stations, zones) = if quick { (2, 16, 16) } else { (4, 72, 72) };
+    let a = args(1, batch, stations, zones);
+    let elements = batch * stations + zones * stations + zones;
+    let (t_complex, t_real) = forward_times(&a, if quick { 5 } else { 51 });
+    println!("Overhead ({elements} elements, one thread): wall time / (forwards × one forward)");
+    let mut overhead = Vec::new();
+    for scheme in [Scheme::ComplexStep, Scheme::Central, Scheme::Ridders] {
+        let audit = Audit::new().scheme(scheme).threads(1);
+        let t = Instant::now();
+        let r = audit.run_parallel(&layer, &a).unwrap_or_else(|e| panic!("{e}"));
+        let wall = t.elapsed().as_secs_f64();
+        assert!(r.passed(), "{r}");
+        let one = if scheme == Scheme::ComplexStep { t_complex } else { t_real };
+        let ratio = wall / (r.forward_evals as f64 * one);
+        println!(
+            "  {scheme:<13} {:>7} forwards  {wall:>8.3} s  one forward {:>9.3e} s  ratio {ratio:.2}",
+            r.forward_evals, one
+        );
+        overhead.push(json!({"elements": elements, "scheme": scheme.to_string(), "forward_evals": r.forward_evals,
+            "seconds": wall, "one_forward_s": one, "ratio": (ratio * 1000.0).round() / 1000.0}));
+    }
+
+    let mut times = Vec::new();
+    let mut reports = Vec::new();
+    for threads in [1, 2] {
+        let audit = Audit::new().threads(threads);
+        let t = Instant::now();
+        let r = audit.run_parallel(&layer, &a).unwrap_or_else(|e| panic!("{e}"));
+        times.push(t.elapsed().as_secs_f64());
+        reports.push(r);
+    }
+    assert_eq!(reports[0], reports[1], "reports differ between 1 and 2 threads");
+    let speedup = times[0] / times[1];
+    println!(
+        "Threads ({elements} elements, complex step): 1 thread {:.3} s, 2 threads {:.3} s, speed-up {speedup:.2}",
+        times[0], times[1]
+    );
+
+    // --- the screen: a million parameters.
+    let (stations, zones, correct) = if quick { (64, 64, 5) } else { (1000, 1000, 100) };
+    let params = stations * zones + zones;
+    let seeds_per_bug: u64 = if quick { 1 } else { 4 };
+    println!("Screen ({params} parameters, batch 1, {correct} correct cases, {} planted bugs)", BUGS.len() as u64 * seeds_per_bug);
+    let (one_complex, _) = forward_times(&args(0, 1, stations, zones), if quick { 3 } else { 11 });
+    let exhaustive = (params + stations) as f64 * one_complex;
+    println!("  one complex forward {one_complex:.3e} s: comparing every element would take about {exhaustive:.0} s");
+    let screen = Audit::new().coverage(Coverage::Screen);
+    let (mut alarms, mut evals, mut seconds) = (0, 0usize, 0.0);
+    for seed in 0..correct as u64 {
+        let a = args(seed, 1, stations, zones);
+        let t = Instant::now();
+        let r = screen.clone().seed(seed).run_parallel(&layer, &a).unwrap_or_else(|e| panic!("{e}"));
+        seconds += t.elapsed().as_secs_f64();
+        evals += r.forward_evals;
+        if !r.passed() {
+            alarms += 1;
+            println!("  false alarm, seed {seed}:\n{r}");
+        }
+    }
+    let (mut planted, mut detected, mut bug_seconds) = (0, 0, 0.0);
+    for bug in BUGS {
+        for seed in 0..seeds_per_bug {
+            let a = args(1000 + seed, 1, stations, zones);
+            let t = Instant::now();
+            let r = screen.clone().seed(seed).run_parallel(&Zones { bug }, &a).unwrap_or_else(|e| panic!("{e}"));
+            let s = t.elapsed().as_secs_f64();
+            bug_seconds += s;
+            planted += 1;
+            let caught = !r.passed();
+            detected += usize::from(caught);
+            let w = r.row("w").map(|w| w.diagnosis.as_ref().map_or("-".to_string(), ToString::to_string));
+            println!("  {bug:?} seed {seed}: {} in {s:.2} s, {} forwards; w: {}", if caught { "caught" } else { "MISSED" }, r.forward_evals, w.unwrap_or_default());
+        }
+    }
+    let per_tensor = evals as f64 / correct as f64 / 3.0;
+    println!(
+        "  correct: {alarms} false alarms in {correct}, {:.1} forwards per audit ({per_tensor:.1} per tensor), {:.2} s per audit",
+        evals as f64 / correct as f64,
+        seconds / correct as f64
+    );
+    println!("  planted: {detected}/{planted} caught, {:.2} s per audit", bug_seconds / planted as f64);
+
+    let out = json!({
+        "overhead": overhead,
+        "threads": {"elements": elements, "t1_s": times[0], "t2_s": times[1], "speedup": (speedup * 100.0).round() / 100.0},
+        "screen": {
+            "params": params,
+            "directions": plumbline::audit::SCREEN_DIRECTIONS,
+            "forward_evals": (evals as f64 / correct as f64 * 10.0).round() / 10.0,
+            "forward_evals_per_tensor": (per_tensor * 10.0).round() / 10.0,
+            "seconds": (seconds / correct as f64 * 1000.0).round() / 1000.0,
+            "planted": planted,
+            "detected": detected,
+            "seconds_per_planted": (bug_seconds / planted as f64 * 1000.0).round() / 1000.0,
+            "correct_cases": correct,
+            "one_complex_forward_s": one_complex,
+            "exhaustive_estimate_s": exhaustive.round(),
+            "false_alarms": alarms,
+        },
+        "quick": quick,
+    });
+    let path = target_dir().join("bench-scale.json");
+    let text = serde_json::to_string_pretty(&out).unwrap_or_else(|e| panic!("JSON: {e}"));
+    if let Err(e) = std::fs::create_dir_all(target_dir()).and_then(|_| std::fs::write(&path, text)) {
+        panic!("cannot write {}: {e}", path.display());
+    }
+    println!("wrote {}", path.display());
+}
