@@ -164,6 +164,10 @@ struct Totals {
     detected: usize,
     right_diagnosis: usize,
     specific: usize,
+    /// Right, but generic: wrong everywhere, or partial without a pattern.
+    generic: usize,
+    /// Per family of the expected kind: planted, specific, generic.
+    families: std::collections::BTreeMap<&'static str, [usize; 3]>,
     cases_f64: usize,
     alarms_f64: usize,
     cases_f32: usize,
@@ -179,6 +183,15 @@ impl Totals {
             "detected": self.detected,
             "right_diagnosis": self.right_diagnosis,
             "right_diagnosis_specific": self.specific,
+            "right_diagnosis_generic": self.generic,
+            "by_family": self
+                .families
+                .iter()
+                .map(|(f, [p, s, g])| {
+                    let counts = json!({"planted": p, "specific": s, "generic": g});
+                    (f.to_string(), counts)
+                })
+                .collect::<serde_json::Map<_, _>>(),
             "correct_cases_f64": self.cases_f64,
             "false_alarms_f64": self.alarms_f64,
             "correct_cases_f32": self.cases_f32,
@@ -364,6 +377,11 @@ fn main() {
             .and_then(|r| r.diagnosis.as_ref())
             .is_some_and(|d| d.is_specific());
         ours.specific += usize::from(outcome.right_diagnosis && specific);
+        ours.generic += usize::from(outcome.right_diagnosis && !specific);
+        let family = ours.families.entry(bug.expect.kind.family()).or_default();
+        family[0] += 1;
+        family[1] += usize::from(outcome.right_diagnosis && specific);
+        family[2] += usize::from(outcome.right_diagnosis && !specific);
         for (cfg, t) in configs.iter().zip(sweep.iter_mut()) {
             // A fresh layer: state carried between calls must not leak.
             let b = run_fixed(*cfg, &case.subject(1), 1);
@@ -383,6 +401,16 @@ fn main() {
             if outcome.detected { "yes" } else { "NO" },
             truncate(&said, 64)
         );
+    }
+
+    println!();
+    println!("Gallery: right diagnoses by family of the planted bug");
+    println!(
+        "{:<12} {:>8} {:>9} {:>8}",
+        "family", "planted", "specific", "generic"
+    );
+    for (f, [p, sp, g]) in &ours.families {
+        println!("{f:<12} {p:>8} {sp:>9} {g:>8}");
     }
 
     println!();
@@ -513,6 +541,8 @@ fn main() {
         // A fixed-step comparison names no diagnosis.
         map.insert("right_diagnosis".into(), Value::Null);
         map.insert("right_diagnosis_specific".into(), Value::Null);
+        map.insert("right_diagnosis_generic".into(), Value::Null);
+        map.remove("by_family");
         map.insert("sweep".into(), Value::Array(sweep_json));
     }
     println!("best: step {}", configs[best].label());
@@ -528,7 +558,10 @@ fn main() {
         ),
         (
             "right diagnosis",
-            format!("{} ({} specific)", ours.right_diagnosis, ours.specific),
+            format!(
+                "{} ({} specific, {} generic)",
+                ours.right_diagnosis, ours.specific, ours.generic
+            ),
             "-".into(),
         ),
         (
