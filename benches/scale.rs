@@ -68,7 +68,11 @@ impl Layer for Zones {
                 let xs = &x[s * i..(s + 1) * i];
                 let z = b[r] + row.iter().zip(xs).map(|(w, x)| w * x).sum::<f64>();
                 let t = z.tanh();
-                let local = if self.bug == Bug::MissingTerm { 1.0 } else { 1.0 - t * t };
+                let local = if self.bug == Bug::MissingTerm {
+                    1.0
+                } else {
+                    1.0 - t * t
+                };
                 dpre[s * o + r] = g[s * o + r] * local;
             }
         }
@@ -147,7 +151,7 @@ fn median(mut v: Vec<f64>) -> f64 {
 /// in `f64`, measured in this process.
 fn forward_times(a: &Args<f64>, reps: usize) -> (f64, f64) {
     let layer = Zones { bug: Bug::None };
-    let complex = a.map(|v| ComplexStep::real(v));
+    let complex = a.map(ComplexStep::real);
     let time = |f: &dyn Fn()| {
         median(
             (0..reps)
@@ -188,10 +192,16 @@ fn main() {
     for scheme in [Scheme::ComplexStep, Scheme::Central, Scheme::Ridders] {
         let audit = Audit::new().scheme(scheme).threads(1);
         let t = Instant::now();
-        let r = audit.run_parallel(&layer, &a).unwrap_or_else(|e| panic!("{e}"));
+        let r = audit
+            .run_parallel(&layer, &a)
+            .unwrap_or_else(|e| panic!("{e}"));
         let wall = t.elapsed().as_secs_f64();
         assert!(r.passed(), "{r}");
-        let one = if scheme == Scheme::ComplexStep { t_complex } else { t_real };
+        let one = if scheme == Scheme::ComplexStep {
+            t_complex
+        } else {
+            t_real
+        };
         let ratio = wall / (r.forward_evals as f64 * one);
         println!(
             "  {scheme:<13} {:>7} forwards  {wall:>8.3} s  one forward {:>9.3e} s  ratio {ratio:.2}",
@@ -206,11 +216,16 @@ fn main() {
     for threads in [1, 2] {
         let audit = Audit::new().threads(threads);
         let t = Instant::now();
-        let r = audit.run_parallel(&layer, &a).unwrap_or_else(|e| panic!("{e}"));
+        let r = audit
+            .run_parallel(&layer, &a)
+            .unwrap_or_else(|e| panic!("{e}"));
         times.push(t.elapsed().as_secs_f64());
         reports.push(r);
     }
-    assert_eq!(reports[0], reports[1], "reports differ between 1 and 2 threads");
+    assert_eq!(
+        reports[0], reports[1],
+        "reports differ between 1 and 2 threads"
+    );
     let speedup = times[0] / times[1];
     println!(
         "Threads ({elements} elements, complex step): 1 thread {:.3} s, 2 threads {:.3} s, speed-up {speedup:.2}",
@@ -218,10 +233,17 @@ fn main() {
     );
 
     // --- the screen: a million parameters.
-    let (stations, zones, correct) = if quick { (64, 64, 5) } else { (1000, 1000, 100) };
+    let (stations, zones, correct) = if quick {
+        (64, 64, 5)
+    } else {
+        (1000, 1000, 100)
+    };
     let params = stations * zones + zones;
     let seeds_per_bug: u64 = if quick { 1 } else { 4 };
-    println!("Screen ({params} parameters, batch 1, {correct} correct cases, {} planted bugs)", BUGS.len() as u64 * seeds_per_bug);
+    println!(
+        "Screen ({params} parameters, batch 1, {correct} correct cases, {} planted bugs)",
+        BUGS.len() as u64 * seeds_per_bug
+    );
     let (one_complex, _) = forward_times(&args(0, 1, stations, zones), if quick { 3 } else { 11 });
     let exhaustive = (params + stations) as f64 * one_complex;
     println!("  one complex forward {one_complex:.3e} s: comparing every element would take about {exhaustive:.0} s");
@@ -230,7 +252,11 @@ fn main() {
     for seed in 0..correct as u64 {
         let a = args(seed, 1, stations, zones);
         let t = Instant::now();
-        let r = screen.clone().seed(seed).run_parallel(&layer, &a).unwrap_or_else(|e| panic!("{e}"));
+        let r = screen
+            .clone()
+            .seed(seed)
+            .run_parallel(&layer, &a)
+            .unwrap_or_else(|e| panic!("{e}"));
         seconds += t.elapsed().as_secs_f64();
         evals += r.forward_evals;
         if !r.passed() {
@@ -243,14 +269,27 @@ fn main() {
         for seed in 0..seeds_per_bug {
             let a = args(1000 + seed, 1, stations, zones);
             let t = Instant::now();
-            let r = screen.clone().seed(seed).run_parallel(&Zones { bug }, &a).unwrap_or_else(|e| panic!("{e}"));
+            let r = screen
+                .clone()
+                .seed(seed)
+                .run_parallel(&Zones { bug }, &a)
+                .unwrap_or_else(|e| panic!("{e}"));
             let s = t.elapsed().as_secs_f64();
             bug_seconds += s;
             planted += 1;
             let caught = !r.passed();
             detected += usize::from(caught);
-            let w = r.row("w").map(|w| w.diagnosis.as_ref().map_or("-".to_string(), ToString::to_string));
-            println!("  {bug:?} seed {seed}: {} in {s:.2} s, {} forwards; w: {}", if caught { "caught" } else { "MISSED" }, r.forward_evals, w.unwrap_or_default());
+            let w = r.row("w").map(|w| {
+                w.diagnosis
+                    .as_ref()
+                    .map_or("-".to_string(), ToString::to_string)
+            });
+            println!(
+                "  {bug:?} seed {seed}: {} in {s:.2} s, {} forwards; w: {}",
+                if caught { "caught" } else { "MISSED" },
+                r.forward_evals,
+                w.unwrap_or_default()
+            );
         }
     }
     let per_tensor = evals as f64 / correct as f64 / 3.0;
@@ -259,7 +298,10 @@ fn main() {
         evals as f64 / correct as f64,
         seconds / correct as f64
     );
-    println!("  planted: {detected}/{planted} caught, {:.2} s per audit", bug_seconds / planted as f64);
+    println!(
+        "  planted: {detected}/{planted} caught, {:.2} s per audit",
+        bug_seconds / planted as f64
+    );
 
     let out = json!({
         "overhead": overhead,
@@ -282,7 +324,8 @@ fn main() {
     });
     let path = target_dir().join("bench-scale.json");
     let text = serde_json::to_string_pretty(&out).unwrap_or_else(|e| panic!("JSON: {e}"));
-    if let Err(e) = std::fs::create_dir_all(target_dir()).and_then(|_| std::fs::write(&path, text)) {
+    if let Err(e) = std::fs::create_dir_all(target_dir()).and_then(|_| std::fs::write(&path, text))
+    {
         panic!("cannot write {}: {e}", path.display());
     }
     println!("wrote {}", path.display());

@@ -206,3 +206,263 @@ impl Tolerance {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// An estimate whose parts are all distinguishable in the bound:
+    /// value 2, error `error`, Σ|terms| 3, forward scale 0.5.
+    fn estimate(error: f64, amplification: f64) -> Estimate {
+        Estimate {
+            value: 2.0,
+            error,
+            scale: 3.0,
+            forward_scale: 0.5,
+            evals: 4,
+            step: 1e-5,
+            conclusive: true,
+            amplification,
+        }
+    }
+
+    fn close(got: f64, want: f64) -> bool {
+        (got - want).abs() <= 1e-12 * want.abs()
+    }
+
+    fn setting_value(r: Result<(), Error>) -> String {
+        match r {
+            Err(Error::Setting { value, .. }) => value,
+            other => panic!("expected a setting error, got {other:?}"),
+        }
+    }
+
+    #[test]
+    fn resolution_is_the_smallest_normal_of_the_layer_precision() {
+        // IEEE 754 smallest normal numbers (from memory): binary32 2⁻¹²⁶,
+        // binary64 2⁻¹⁰²².
+        assert_eq!(
+            resolution(f64::from(f32::EPSILON)),
+            1.175_494_350_822_287_5e-38
+        );
+        assert_eq!(resolution(f64::EPSILON), 2.225_073_858_507_201_4e-308);
+    }
+
+    #[test]
+    fn margins_outside_zero_to_ten_thousand_are_refused() {
+        for ok in [4.0, 1e-300, 1.0, 1e4] {
+            assert!(check_margin("margin", ok).is_ok(), "{ok}");
+        }
+        for bad in [
+            0.0,
+            -1.0,
+            -4.0,
+            1e4 * (1.0 + f64::EPSILON),
+            f64::INFINITY,
+            f64::NAN,
+        ] {
+            assert!(check_margin("margin", bad).is_err(), "{bad}");
+        }
+    }
+
+    #[test]
+    fn absolute_bounds_must_be_finite_and_not_negative() {
+        for ok in [0.0, 1e-12, 1.0] {
+            assert!(check_max_absolute("max_absolute", ok).is_ok(), "{ok}");
+        }
+        for bad in [-1.0, -1e-300, f64::INFINITY, f64::NAN] {
+            assert!(check_max_absolute("max_absolute", bad).is_err(), "{bad}");
+        }
+    }
+
+    #[test]
+    fn relative_bounds_must_lie_in_zero_to_one() {
+        for ok in [0.0, 1e-6, 0.5] {
+            assert!(check_max_relative("max_relative", ok).is_ok(), "{ok}");
+        }
+        for bad in [1.0, 2.0, -0.1, f64::INFINITY, f64::NAN] {
+            assert!(check_max_relative("max_relative", bad).is_err(), "{bad}");
+        }
+    }
+
+    #[test]
+    fn refused_values_are_written_as_a_person_types_them() {
+        assert_eq!(setting_value(check_margin("m", 0.0)), "0");
+        assert_eq!(setting_value(check_margin("m", -4.0)), "-4");
+        assert_eq!(setting_value(check_margin("m", 1e5)), "100000");
+        assert_eq!(setting_value(check_margin("m", 1e300)), "1e300");
+        assert_eq!(setting_value(check_margin("m", -1e-9)), "-1e-9");
+        assert_eq!(setting_value(check_margin("m", f64::NAN)), "NaN");
+        assert_eq!(setting_value(check_margin("m", f64::INFINITY)), "inf");
+        assert_eq!(setting_value(check_max_relative("r", 1.5)), "1.5");
+        match check_margin("PLUMBLINE_MARGIN", 0.0) {
+            Err(Error::Setting {
+                setting, detail, ..
+            }) => {
+                assert_eq!(setting, "PLUMBLINE_MARGIN");
+                assert!(detail.contains("above 0"), "{detail}");
+            }
+            other => panic!("{other:?}"),
+        }
+    }
+
+    #[test]
+    fn validation_needs_one_fixed_bound_above_zero() {
+        let tol = |margin, max_absolute, max_relative| Tolerance {
+            margin,
+            max_absolute,
+            max_relative,
+        };
+        assert!(Tolerance::default().validate().is_ok());
+        assert!(tol(0.0, None, None).validate().is_err());
+        assert!(tol(4.0, Some(-1.0), None).validate().is_err());
+        assert!(tol(4.0, None, Some(1.0)).validate().is_err());
+        // Both bounds 0, or the only one set 0: every correct layer fails.
+        assert!(tol(4.0, Some(0.0), Some(0.0)).validate().is_err());
+        assert!(tol(4.0, Some(0.0), None).validate().is_err());
+        assert!(tol(4.0, None, Some(0.0)).validate().is_err());
+        // One bound above 0 is enough.
+        assert!(tol(4.0, Some(1e-6), None).validate().is_ok());
+        assert!(tol(4.0, None, Some(1e-3)).validate().is_ok());
+        assert!(tol(4.0, Some(0.0), Some(1e-3)).validate().is_ok());
+        assert!(tol(4.0, Some(1e-6), Some(0.0)).validate().is_ok());
+    }
+
+    #[test]
+    fn fixed_when_either_bound_is_set() {
+        assert!(!Tolerance::default().is_fixed());
+        for (a, r) in [
+            (Some(1e-6), None),
+            (None, Some(1e-3)),
+            (Some(1e-6), Some(1e-3)),
+        ] {
+            let t = Tolerance {
+                max_absolute: a,
+                max_relative: r,
+                ..Tolerance::default()
+            };
+            assert!(t.is_fixed(), "{t:?}");
+        }
+    }
+
+    #[test]
+    fn the_bound_follows_the_documented_rule() {
+        // Check values worked by hand from the rule in the module docs
+        // (DEVELOPERS.md, "The bound rule"):
+        // margin × (error + 8·ε·max(A·(Σ|terms| + |n| + forward scale), |a|)
+        //           + smallest normal).
+        let tol = Tolerance::default();
+        let eps = f64::EPSILON;
+        // 4 × (1e-10 + 8·2⁻⁵²·2·(3 + 2 + 0.5)), amplification 2, |a| = 1.
+        let b = tol.bound(&estimate(1e-10, 2.0), 1.0, eps);
+        assert!(close(b, 4.000_781_597_009_336e-10), "{b:e}");
+        // The same with an error comparable to the rounding floor:
+        // 4 × (1e-14 + 8·2⁻⁵²·2·5.5).
+        let b = tol.bound(&estimate(1e-14, 2.0), 1.0, eps);
+        assert!(close(b, 1.181_597_009_336_110_3e-13), "{b:e}");
+        // A large analytic value sets the floor unamplified: 4 × 8·2⁻⁵²·100.
+        let b = tol.bound(&estimate(0.0, 1.0), -100.0, eps);
+        assert!(close(b, 7.105_427_357_601_002e-13), "{b:e}");
+        // The layer's precision sets ε: 4 × (1e-10 + 8·2⁻²³·2·5.5 + 2⁻¹²⁶).
+        let b = tol.bound(&estimate(1e-10, 2.0), 1.0, f64::from(f32::EPSILON));
+        assert!(close(b, 4.196_206_992_187_5e-5), "{b:e}");
+        // Nothing to scale: the bound is margin × the smallest normal
+        // (IEEE 754 binary64 2⁻¹⁰²², binary32 2⁻¹²⁶, from memory).
+        let zero = Estimate {
+            value: 0.0,
+            error: 0.0,
+            scale: 0.0,
+            forward_scale: 0.0,
+            ..estimate(0.0, 1.0)
+        };
+        assert_eq!(
+            tol.bound(&zero, 0.0, eps),
+            4.0 * 2.225_073_858_507_201_4e-308
+        );
+        assert_eq!(
+            tol.bound(&zero, 0.0, f64::from(f32::EPSILON)),
+            4.0 * 1.175_494_350_822_287_5e-38
+        );
+        // The margin multiplies the whole bar.
+        let ten = Tolerance {
+            margin: 10.0,
+            ..Tolerance::default()
+        };
+        let b = ten.bound(&estimate(1e-10, 2.0), 1.0, eps);
+        assert!(close(b, 4.000_781_597_009_336e-10 * 2.5), "{b:e}");
+    }
+
+    #[test]
+    fn fixed_bounds_replace_the_error_bar() {
+        let rel = Tolerance {
+            max_relative: Some(0.01),
+            ..Tolerance::default()
+        };
+        // 0.01 × max(|3|, |2|) = 0.03, whatever the estimate's error.
+        let b = rel.bound(&estimate(1e-10, 1.0), -3.0, f64::EPSILON);
+        assert!(close(b, 0.03), "{b:e}");
+        // The numeric value when it is the larger: 0.01 × 2.
+        let b = rel.bound(&estimate(5.0, 1.0), 0.5, f64::EPSILON);
+        assert!(close(b, 0.02), "{b:e}");
+        let both = Tolerance {
+            max_absolute: Some(0.1),
+            max_relative: Some(0.01),
+            ..Tolerance::default()
+        };
+        assert_eq!(both.bound(&estimate(1e-10, 1.0), 3.0, f64::EPSILON), 0.1);
+        let abs = Tolerance {
+            max_absolute: Some(1e-6),
+            ..Tolerance::default()
+        };
+        assert_eq!(abs.bound(&estimate(1e-10, 1.0), 300.0, f64::EPSILON), 1e-6);
+    }
+
+    #[test]
+    fn a_non_finite_value_error_or_analytic_value_gives_a_nan_bound() {
+        let fixed = Tolerance {
+            max_absolute: Some(1e-6),
+            max_relative: Some(1e-3),
+            ..Tolerance::default()
+        };
+        for tol in [Tolerance::default(), fixed] {
+            let mut e = estimate(1e-10, 1.0);
+            assert!(tol.bound(&e, 1.0, f64::EPSILON).is_finite());
+            e.value = f64::NAN;
+            assert!(tol.bound(&e, 1.0, f64::EPSILON).is_nan(), "{tol:?}");
+            let mut e = estimate(1e-10, 1.0);
+            e.error = f64::INFINITY;
+            assert!(tol.bound(&e, 1.0, f64::EPSILON).is_nan(), "{tol:?}");
+            let e = estimate(1e-10, 1.0);
+            assert!(tol.bound(&e, f64::NAN, f64::EPSILON).is_nan(), "{tol:?}");
+            assert!(
+                tol.bound(&e, f64::INFINITY, f64::EPSILON).is_nan(),
+                "{tol:?}"
+            );
+        }
+    }
+
+    #[test]
+    fn accepts_up_to_the_bound_and_never_nan() {
+        assert!(Tolerance::accepts(1.0, 2.0));
+        assert!(Tolerance::accepts(2.0, 2.0));
+        assert!(!Tolerance::accepts(2.5, 2.0));
+        assert!(!Tolerance::accepts(1.0, f64::NAN));
+        assert!(!Tolerance::accepts(f64::NAN, 1.0));
+    }
+
+    #[test]
+    fn descriptions_name_the_rule_in_force() {
+        assert_eq!(
+            Tolerance::default().describe(),
+            "|a-n| <= 4 x (reference error + 8 ulp x magnitudes)"
+        );
+        let fixed = Tolerance {
+            max_relative: Some(0.001),
+            ..Tolerance::default()
+        };
+        assert_eq!(
+            fixed.describe(),
+            "|a-n| <= max(absolute 0, relative 0.001 x max(|a|,|n|))"
+        );
+    }
+}

@@ -204,3 +204,43 @@ fn nan_never_passes_as_a_derivative() {
     let d = central_difference(|x: f64| if x > 1.0 { f64::NAN } else { x }, 1.0);
     assert!(d.value.is_nan() || d.error.is_nan() || d.error.is_infinite());
 }
+
+#[test]
+fn kink_test_reports_slopes_noise_and_where_the_kink_lies() {
+    // One-sided slopes from the definitions (common practice): |x| at 0 is
+    // −1 / +1; max(x, 0.3) is 0 / 1 at 0.3.
+    let k = one_sided_derivatives(f64::abs, 0.0, 1e-3).unwrap();
+    assert!(k.at_point && k.noise < 1e-9, "{k:?}");
+    // Orchard frost: damage grows as max(0.3 − t, 0) below 0.3 °C of
+    // margin. Probed at 0.29 with h = 0.02, the kink at 0.3 lies within h
+    // but beyond h/4: reported, but not at the point, with the slopes over
+    // ±h/4 (both −1: damage falls one for one as the margin grows).
+    let frost = |t: f64| (0.3 - t).max(0.0);
+    let k = one_sided_derivatives(frost, 0.29, 0.02).unwrap();
+    assert!(!k.at_point, "{k:?}");
+    assert!(
+        (k.left + 1.0).abs() < 1e-9 && (k.right + 1.0).abs() < 1e-9,
+        "{k:?}"
+    );
+    // At the kink itself: −1 from the left, 0 from the right.
+    let k = one_sided_derivatives(frost, 0.3, 0.02).unwrap();
+    assert!(k.at_point, "{k:?}");
+    assert!((k.left + 1.0).abs() < 1e-9 && k.right.abs() < 1e-9, "{k:?}");
+}
+
+#[test]
+fn a_kink_under_strong_curvature_is_still_found() {
+    // 1e-4·|x| + 1000·x²: over ±1e-3 the curvature term (2 per unit step)
+    // dwarfs the jump of the slope (2e-4), so the gaps shrink like a smooth
+    // function's. Extrapolated one-sided slopes (4·D(s/4) − D(s))/3 cancel
+    // the curvature exactly and leave ∓1e-4 (worked by hand).
+    let f = |x: f64| 1e-4 * x.abs() + 1000.0 * x * x;
+    let k = one_sided_derivatives(f, 0.0, 1e-3).unwrap();
+    assert!(k.at_point, "{k:?}");
+    assert!(
+        (k.left + 1e-4).abs() < 1e-9 && (k.right - 1e-4).abs() < 1e-9,
+        "{k:?}"
+    );
+    // The same curvature without the kink: smooth.
+    assert!(one_sided_derivatives(|x: f64| 1000.0 * x * x, 0.0, 1e-3).is_none());
+}

@@ -262,12 +262,14 @@ pub(super) fn describe(
             }
         }
     }
-    // Several whole slices of one axis.
-    for axis in 0..rank {
+    // Several whole slices of one axis, each with two elements at least
+    // (slices of one element would only list the elements).
+    for axis in (0..rank).filter(|_| rank >= 2) {
         let mut values: Vec<usize> = inside.iter().map(|ix| ix[axis]).collect();
         values.sort_unstable();
+        let singles = values.chunk_by(|p, q| p == q).any(|run| run.len() < 2);
         values.dedup();
-        if values.len() >= 2 && separates(&|ix| values.contains(&ix[axis])) {
+        if !singles && values.len() >= 2 && separates(&|ix| values.contains(&ix[axis])) {
             let list: Vec<String> = values.iter().map(usize::to_string).collect();
             return Some(format!(
                 "{}s {}{}",
@@ -277,8 +279,10 @@ pub(super) fn describe(
             ));
         }
     }
-    // Where another tensor of the same shape is negative or positive.
-    for (name, t) in tensors.iter().filter(|(_, t)| t.shape() == shape) {
+    // Where another tensor of the same shape is negative or positive; with
+    // few elements a sign pattern matches by chance, so ask for eight.
+    let enough = inside.len() + outside.len() >= 8;
+    for (name, t) in tensors.iter().filter(|(_, t)| enough && t.shape() == shape) {
         let value = |ix: &[usize]| t.get(ix).unwrap_or(f64::NAN);
         if separates(&|ix| value(ix) < 0.0) {
             return Some(format!("elements where `{name}` < 0"));
@@ -416,13 +420,13 @@ pub(super) fn scaled_per_slice(shape: &[usize], smooth: &[ElementCheck]) -> Opti
         if len < 2 || rank < 2 {
             continue;
         }
+        let mut slices: Vec<Vec<&ElementCheck>> = vec![Vec::new(); len];
+        for e in smooth {
+            slices[multi(shape, e)[axis]].push(e);
+        }
         let mut factors: Vec<Option<f64>> = vec![None; len];
         let mut evidence = 0;
-        for (v, factor) in factors.iter_mut().enumerate() {
-            let slice: Vec<&ElementCheck> = smooth
-                .iter()
-                .filter(|e| multi(shape, e)[axis] == v)
-                .collect();
+        for (slice, factor) in slices.iter().zip(factors.iter_mut()) {
             let wrong = slice.iter().filter(|e| e.status.is_failure()).count();
             let mut ratios: Vec<f64> = slice
                 .iter()

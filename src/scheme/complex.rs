@@ -138,5 +138,107 @@ mod tests {
         assert!(step_for(1e-300) >= 4.0 * f64::MIN_POSITIVE);
         assert_eq!(step_for(1e-310), 1e-20); // subnormal: absolute step
         assert!(tiny(1e-100) && !tiny(0.0) && !tiny(1e-310) && !tiny(1e-3));
+        // The floor of a relative step: 4 × the smallest normal (doc comment).
+        assert_eq!(step_for(1e-300), 4.0 * f64::MIN_POSITIVE);
+        assert!((step_for(-3e-9) / 3e-21 - 1.0).abs() < 1e-15);
+        assert!((step_for(-250.0) / 2.5e-18 - 1.0).abs() < 1e-15);
+    }
+
+    fn c(re: f64, im: f64) -> ComplexStep<f64> {
+        ComplexStep { re, im }
+    }
+
+    fn tensor(data: Vec<ComplexStep<f64>>) -> Tensor<ComplexStep<f64>> {
+        Tensor::new(vec![data.len()], data).unwrap()
+    }
+
+    fn close(got: f64, want: f64) -> bool {
+        (got - want).abs() <= 1e-15 * want.abs()
+    }
+
+    #[test]
+    fn read_sums_weighted_imaginary_parts_over_the_step() {
+        // Worked by hand from the field docs of `Directional`, h = 1e-20:
+        // value = 0.5·3 + 2·(−1) − 1·2 = −2.5, terms = 1.5 + 2 + 2 = 5.5,
+        // touched = |0.5·2| + |2·4| + |−1·−3| = 12 (the output with no
+        // imaginary part is left out of all three).
+        let y = vec![
+            tensor(vec![c(2.0, 3e-20), c(-1.0, 0.0), c(4.0, -1e-20)]),
+            tensor(vec![c(-3.0, 2e-20)]),
+        ];
+        let w = vec![vec![0.5, 7.0, 2.0], vec![-1.0]];
+        let d = read(&y, &w, 1e-20, &[]);
+        assert!(d.finite, "{d:?}");
+        assert!(close(d.value, -2.5) && close(d.terms, 5.5), "{d:?}");
+        assert!(close(d.touched, 12.0), "{d:?}");
+        assert_eq!((d.underflow, d.amplification), (0.0, 1.0));
+        // Amplification: the largest among the outputs with a derivative
+        // (100 belongs to the one without), never below 1.
+        let d = read(&y, &w, 1e-20, &[3.0, 100.0, 0.5, 2.0]);
+        assert_eq!(d.amplification, 3.0);
+        let d = read(&y, &w, 1e-20, &[0.5, 100.0, 0.5, 2.5]);
+        assert_eq!(d.amplification, 2.5);
+        let d = read(&y, &w, 1e-20, &[0.5, 100.0, 0.5, 0.25]);
+        assert_eq!(d.amplification, 1.0);
+    }
+
+    #[test]
+    fn read_counts_the_granularity_lost_to_underflow() {
+        // A subnormal imaginary part loses up to the smallest subnormal
+        // (2⁻¹⁰⁷⁴) per unit weight: |−2|·2⁻¹⁰⁷⁴/1e-20.
+        let y = vec![tensor(vec![c(1.0, 1e-310), c(1.0, f64::MIN_POSITIVE)])];
+        let d = read(&y, &[vec![-2.0, 1.0]], 1e-20, &[]);
+        assert!(close(d.underflow, 2.0 * f64::from_bits(1) / 1e-20), "{d:?}");
+        assert!(d.finite);
+    }
+
+    #[test]
+    fn read_refuses_non_finite_outputs_and_wrong_shapes() {
+        let w = vec![vec![1.0, 1.0]];
+        for bad in [c(f64::NAN, 1e-20), c(1.0, f64::NAN), c(f64::INFINITY, 0.0)] {
+            let d = read(&[tensor(vec![c(1.0, 1e-20), bad])], &w, 1e-20, &[]);
+            assert!(!d.finite && d.value.is_nan(), "{bad:?}: {d:?}");
+        }
+        let one = vec![tensor(vec![c(1.0, 1e-20)])];
+        let d = read(&one, &w, 1e-20, &[]);
+        assert!(!d.finite && d.value.is_nan(), "{d:?}");
+        let d = read(&one, &[vec![1.0], vec![1.0]], 1e-20, &[]);
+        assert!(!d.finite && d.value.is_nan(), "{d:?}");
+        let d = read(&one, &[vec![2.0]], 1e-20, &[]);
+        assert!(d.finite && close(d.value, 2.0), "{d:?}");
+    }
+
+    #[test]
+    fn evaluate_seeds_the_direction_runs_and_clears() {
+        // Hive example: y = x₀·x₁ (brood warmth times humidity). Moving
+        // (x₀, x₁) along (1, 0.5) at (2, 3): dy = x₁·1 + x₀·0.5 = 4.
+        let mut work = Args::new(vec![tensor(vec![c(2.0, 0.0), c(3.0, 0.0)])], vec![]);
+        let mut forward = |a: &Args<ComplexStep<f64>>| {
+            let x = a.input(0).data();
+            Some(vec![tensor(vec![x[0] * x[1]])])
+        };
+        let d = evaluate(
+            &mut work,
+            &mut forward,
+            &[vec![1.0]],
+            0,
+            &[(0, 1.0), (1, 0.5)],
+            1e-20,
+            &[],
+        );
+        assert!(d.finite && close(d.value, 4.0), "{d:?}");
+        assert!(work.input(0).data().iter().all(|v| v.im == 0.0));
+        // A forward that panicked: NaN.
+        let mut panicked = |_: &Args<ComplexStep<f64>>| None;
+        let d = evaluate(
+            &mut work,
+            &mut panicked,
+            &[vec![1.0]],
+            0,
+            &[(0, 1.0)],
+            1e-20,
+            &[],
+        );
+        assert!(d.value.is_nan() && !d.finite, "{d:?}");
     }
 }

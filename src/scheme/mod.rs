@@ -481,3 +481,293 @@ pub fn ridders_derivative(f: impl FnMut(f64) -> f64, x: f64, h0: f64) -> Estimat
 pub fn one_sided_derivatives(f: impl FnMut(f64) -> f64, x: f64, h: f64) -> Option<KinkProbe> {
     kink_test(&mut ScalarLine::new(f, x), h)
 }
+
+#[cfg(test)]
+// Check values keep the digits of their source.
+#[allow(clippy::excessive_precision)]
+pub(crate) mod tests {
+    use super::*;
+
+    /// A line whose central differences are scripted: `derivative(s)` is
+    /// D(s) at half-width s (`None`: not finite there), with fixed
+    /// Σ|wᵢyᵢ| of the outputs that moved (`touched`) and did not (`still`).
+    /// Every half-width asked for is recorded. The schemes' arithmetic can
+    /// then be checked by hand against their documented error models.
+    pub(crate) struct Script<F> {
+        pub x: f64,
+        pub eps: f64,
+        pub derivative: F,
+        pub touched: f64,
+        pub still: f64,
+        pub asked: Vec<f64>,
+    }
+
+    impl<F: FnMut(f64) -> Option<f64>> Script<F> {
+        pub(crate) fn new(x: f64, derivative: F) -> Self {
+            Script {
+                x,
+                eps: f64::EPSILON,
+                derivative,
+                touched: 1.0,
+                still: 0.0,
+                asked: Vec::new(),
+            }
+        }
+    }
+
+    impl<F: FnMut(f64) -> Option<f64>> Line for Script<F> {
+        fn eps(&self) -> f64 {
+            self.eps
+        }
+        fn x(&self) -> f64 {
+            self.x
+        }
+        fn at(&mut self, _: f64) -> Sample {
+            unreachable!("scripted lines answer pairs only")
+        }
+        fn pair(&mut self, h: f64) -> Pair {
+            self.asked.push(h);
+            match (self.derivative)(h) {
+                Some(d) => Pair {
+                    derivative: d,
+                    terms: d.abs(),
+                    touched: self.touched,
+                    still: self.still,
+                    width: 2.0 * h,
+                    finite: true,
+                },
+                None => Pair {
+                    width: 2.0 * h,
+                    ..Pair::default()
+                },
+            }
+        }
+    }
+
+    /// Relative closeness for check values.
+    fn close(got: f64, want: f64, rel: f64) -> bool {
+        (got - want).abs() <= rel * want.abs()
+    }
+
+    #[test]
+    fn scheme_names_round_trip_and_parse_leniently() {
+        for (s, name) in [
+            (Scheme::ComplexStep, "complex-step"),
+            (Scheme::Ridders, "ridders"),
+            (Scheme::Central, "central"),
+        ] {
+            assert_eq!(s.as_str(), name);
+            assert_eq!(s.to_string(), name);
+            assert_eq!(name.parse::<Scheme>(), Ok(s));
+        }
+        assert_eq!(" COMPLEX_STEP ".parse::<Scheme>(), Ok(Scheme::ComplexStep));
+        assert_eq!("complex".parse::<Scheme>(), Ok(Scheme::ComplexStep));
+        assert_eq!("Ridders".parse::<Scheme>(), Ok(Scheme::Ridders));
+        assert_eq!("CENTRAL".parse::<Scheme>(), Ok(Scheme::Central));
+        assert!("forward".parse::<Scheme>().is_err());
+        assert!("".parse::<Scheme>().is_err());
+    }
+
+    #[test]
+    fn an_estimate_that_could_not_be_formed_never_passes() {
+        let e = Estimate::not_finite(12);
+        assert!(e.value.is_nan() && e.error.is_nan(), "{e:?}");
+        assert_eq!((e.evals, e.conclusive, e.amplification), (12, false, 1.0));
+    }
+
+    #[test]
+    fn wide_means_a_truncation_above_one_percent_of_the_size() {
+        // WIDE = 1% of max(|derivative|, Σ|terms|) (doc comment of WIDE).
+        assert!(conclusive(0.01, 1.0, 0.0));
+        assert!(!conclusive(0.011, 1.0, 0.0));
+        assert!(!conclusive(0.5, -1.0, 0.0));
+        assert!(conclusive(0.05, -10.0, 0.0));
+        assert!(!conclusive(0.2, -10.0, 0.0));
+        // Σ|terms| sets the size when it is the larger.
+        assert!(conclusive(0.02, 0.001, 2.0));
+        assert!(!conclusive(0.03, 0.001, 2.0));
+    }
+
+    #[test]
+    fn rounding_and_quantization_follow_their_documented_models() {
+        // Pair::rounding: 4 ulps of the outputs that moved, over the width;
+        // quantization: 4 × (one ulp, counted twice) of the still outputs
+        // over the width. Worked by hand: 4·1e-3·2/0.5 and 8·1e-3·3/0.5.
+        let p = Pair {
+            touched: 2.0,
+            still: 3.0,
+            width: 0.5,
+            ..Pair::default()
+        };
+        assert!(
+            close(p.rounding(1e-3), 0.016, 1e-15),
+            "{}",
+            p.rounding(1e-3)
+        );
+        assert!(close(quantization(&p, 1e-3), 0.048, 1e-15));
+    }
+
+    #[test]
+    fn scatter_is_the_largest_distance_from_the_least_squares_line() {
+        // (0,0), (1,1), (2,2), (3,4): the line is y = 1.3x − 0.2, the
+        // largest residual 0.4 at x = 2 (worked by hand; mpmath 1.3 at 40
+        // digits gives 0.4).
+        let s = scatter(&[1.0, 2.0, 3.0], &[1.0, 2.0, 4.0], 0.0);
+        assert!(close(s, 0.4, 1e-14), "{s}");
+        // The point itself counts, and a shift of every value changes nothing.
+        let s = scatter(&[1.0, 2.0, 3.0], &[11.0, 12.0, 14.0], 10.0);
+        assert!(close(s, 0.4, 1e-13), "{s}");
+        // Points on a line scatter by nothing; the point alone, by nothing.
+        assert!(scatter(&[-2.0, 1.0, 5.0], &[-6.0, 3.0, 15.0], 0.0) < 1e-14);
+        assert_eq!(scatter(&[], &[], 3.0), 0.0);
+        // Offsets 1, −2, 3, 5 with values 2, 0, 7, −1 and 1 at 0:
+        // 4.9041095890410958904 (mpmath 1.3 at 40 digits, normal equations).
+        let s = scatter(&[1.0, -2.0, 3.0, 5.0], &[2.0, 0.0, 7.0, -1.0], 1.0);
+        assert!(close(s, 4.904_109_589_041_095_890_4, 1e-13), "{s}");
+    }
+
+    #[test]
+    fn scatter_about_a_parabola_is_the_least_squares_residual() {
+        // mpmath 1.3 at 40 digits, normal equations of y = a + bx + cx²:
+        // (0..4, [0,0,0,0,1]) → 0.25714285714285714286;
+        // offsets 1, −2, 3, 5, values 2, 0, 7, −1, 1 at 0 → 3.6365608361269966476.
+        let s = scatter_about_parabola(&[1.0, 2.0, 3.0, 4.0], &[0.0, 0.0, 0.0, 1.0], 0.0);
+        assert!(close(s, 0.257_142_857_142_857_142_86, 1e-12), "{s}");
+        let s = scatter_about_parabola(&[1.0, -2.0, 3.0, 5.0], &[2.0, 0.0, 7.0, -1.0], 1.0);
+        assert!(close(s, 3.636_560_836_126_996_647_6, 1e-12), "{s}");
+        // Points on a parabola: nothing left over.
+        let on = |x: f64| 2.0 - x + 0.5 * x * x;
+        let xs = [-3.0, -1.0, 2.0, 4.0, 7.0];
+        let ys: Vec<f64> = xs.iter().map(|&x| on(x)).collect();
+        assert!(scatter_about_parabola(&xs, &ys, on(0.0)) < 1e-12);
+        // Three points or fewer fit any parabola.
+        assert_eq!(scatter_about_parabola(&[1.0, 2.0], &[5.0, -3.0], 1.0), 0.0);
+        // Repeated offsets leave the normal equations singular: 0.
+        assert_eq!(
+            scatter_about_parabola(&[0.0, 0.0, 0.0], &[1.0, 2.0, 3.0], 0.0),
+            0.0
+        );
+    }
+
+    #[test]
+    fn solve3_solves_a_regular_system_and_refuses_a_singular_one() {
+        // 2a + b + c = 4, a + 3b + 2c = 5, a = 6 → (6, 15, −23) (by hand;
+        // mpmath lu_solve agrees).
+        let m = [[2.0, 1.0, 1.0], [1.0, 3.0, 2.0], [1.0, 0.0, 0.0]];
+        let x = solve3(m, [4.0, 5.0, 6.0]).unwrap();
+        for (got, want) in x.iter().zip([6.0, 15.0, -23.0]) {
+            assert!(close(*got, want, 1e-14), "{x:?}");
+        }
+        let singular = [[1.0, 2.0, 3.0], [2.0, 4.0, 6.0], [0.0, 1.0, 1.0]];
+        assert!(solve3(singular, [1.0, 2.0, 3.0]).is_none());
+        let huge = [[1e200, 0.0, 0.0], [0.0, 1e200, 0.0], [0.0, 0.0, 1e200]];
+        assert!(solve3(huge, [1.0, 1.0, 1.0]).is_none());
+    }
+
+    /// d³ + 2d² + d with d = x − 1, plus 1e-12 just left of 1 (within a
+    /// millionth): a forward whose rounding pattern is known exactly.
+    fn bumpy(x: f64) -> f64 {
+        let d = x - 1.0;
+        let bump = if d < 0.0 && d > -1e-6 { 1e-12 } else { 0.0 };
+        d * d * d + 2.0 * d * d + d + bump
+    }
+
+    #[test]
+    fn look_measures_rounding_curvature_and_third_derivative() {
+        let l = look(&mut ScalarLine::new(bumpy, 1.0));
+        // The moves are k ulps of 1 for the eight LOOK_OFFSETS; the bump
+        // on the left side scatters 5.5542585782755457901e-13 about the
+        // best line (mpmath 1.3 at 40 digits, normal equations).
+        assert!(
+            close(l.noise, 5.554_258_578_275_545_790_1e-13, 1e-6),
+            "{l:?}"
+        );
+        // The largest output moved: 1e-12 − 2⁻⁵² one ulp left of 1 (by
+        // hand: 9.99777955395074969e-13).
+        assert!(
+            close(l.touched, 9.997_779_553_950_749_69e-13, 1e-6),
+            "{l:?}"
+        );
+        // φ″(1) = 4 and φ‴(1) = 6 (from the polynomial, by hand).
+        assert_eq!(l.bend_step, 1e-4);
+        assert!(close(l.curvature, 4.0, 1e-6), "{l:?}");
+        assert!(close(l.third, 6.0, 1e-6), "{l:?}");
+        // The step scales with max(|x|, 1).
+        let l = look(&mut ScalarLine::new(|x: f64| x * x, -8.0));
+        assert_eq!(l.bend_step, 8e-4);
+        assert!(close(l.curvature, 2.0, 1e-6), "{l:?}");
+        assert!(l.third < 1e-3, "{l:?}");
+    }
+
+    #[test]
+    fn look_skips_moves_where_the_forward_is_not_finite() {
+        // The same bump with the move of +16 ulps not finite: the other seven
+        // scatter 5.0012946134757952403e-13 (mpmath 1.3 at 40 digits).
+        let sixteen = 1.0 + 16.0 * f64::EPSILON;
+        let f = |x: f64| if x == sixteen { f64::NAN } else { bumpy(x) };
+        let l = look(&mut ScalarLine::new(f, 1.0));
+        assert!(
+            close(l.noise, 5.001_294_613_475_795_240_3e-13, 1e-6),
+            "{l:?}"
+        );
+        // A forward not finite at the bend steps has no curvature to report.
+        let g = |x: f64| if (x - 1.0).abs() > 1e-6 { f64::NAN } else { x };
+        let l = look(&mut ScalarLine::new(g, 1.0));
+        assert_eq!((l.curvature, l.third), (0.0, 0.0), "{l:?}");
+    }
+
+    #[test]
+    fn finite_pair_shrinks_by_four_until_both_ends_are_finite() {
+        // Finite only within 1e-3 of x = 2: 1 → 1/4 → … → 4⁻⁵ = 9.765625e-4,
+        // after six pairs (twelve evaluations).
+        let f = |x: f64| {
+            if (x - 2.0).abs() < 1e-3 {
+                x * x
+            } else {
+                f64::NAN
+            }
+        };
+        let (h, p, evals) = finite_pair(&mut ScalarLine::new(f, 2.0), 1.0).unwrap();
+        assert_eq!((h, evals), (9.765_625e-4, 12));
+        assert!(p.finite && close(p.derivative, 4.0, 1e-12), "{p:?}");
+        // Nowhere finite, or steps lost below an ulp of x: no pair.
+        assert!(finite_pair(&mut ScalarLine::new(|_| f64::NAN, 0.0), 1.0).is_none());
+        assert!(finite_pair(&mut ScalarLine::new(|x| x, 1e20), 1.0).is_none());
+    }
+
+    #[test]
+    fn a_scalar_line_measures_against_the_point() {
+        let mut line = ScalarLine::new(|x: f64| 3.0 * x, 2.0);
+        assert_eq!(
+            (line.eps(), line.x(), line.scale()),
+            (f64::EPSILON, 2.0, 2.0)
+        );
+        let s = line.at(0.5);
+        assert_eq!(
+            (s.step, s.delta, s.touched, s.finite),
+            (0.5, 1.5, 7.5, true)
+        );
+        let s = line.at(-0.5);
+        assert_eq!((s.step, s.delta, s.touched), (-0.5, -1.5, 6.0));
+        let p = line.pair(0.25);
+        assert_eq!((p.derivative, p.terms, p.width), (3.0, 3.0, 0.5));
+        assert_eq!((p.touched, p.still, p.finite), (6.75, 0.0, true));
+        assert_eq!(ScalarLine::new(|x: f64| x, -0.5).scale(), 1.0);
+        // A move that changes nothing touches nothing; an output that moves
+        // at neither end is still.
+        let mut flat = ScalarLine::new(|_| -5.0, 1.0);
+        assert_eq!(flat.at(0.1).touched, 0.0);
+        let p = flat.pair(0.1);
+        assert_eq!((p.derivative, p.still), (0.0, 5.0));
+        // Still only when neither end moved.
+        let mut half = ScalarLine::new(|x: f64| x.max(1.0), 1.0);
+        assert_eq!(half.pair(0.5).still, 0.0);
+        let mut half = ScalarLine::new(|x: f64| x.min(1.0), 1.0);
+        assert_eq!(half.pair(0.5).still, 0.0);
+        // One end not finite: the pair is not.
+        let mut edge = ScalarLine::new(|x: f64| if x > 1.0 { f64::NAN } else { x }, 1.0);
+        assert!(!edge.pair(0.5).finite);
+        let mut edge = ScalarLine::new(|x: f64| if x < 1.0 { f64::NAN } else { x }, 1.0);
+        assert!(!edge.pair(0.5).finite);
+    }
+}

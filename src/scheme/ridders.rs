@@ -283,4 +283,82 @@ mod tests {
         let row2 = next_row(&row1, d(1.0 / (SHRINK * SHRINK)), r2);
         assert!((row2[2] - 1.0).abs() < 1e-14, "{row2:?}");
     }
+
+    use crate::scheme::tests::Script;
+
+    /// The check step at x = 0: 2ε^(1/3) (doc comment of `small_step_check`).
+    fn check_step() -> f64 {
+        2.0 * f64::EPSILON.cbrt()
+    }
+
+    #[test]
+    fn the_steps_follow_the_documented_ladder() {
+        // D(s) = 2 + s² + s⁴: even powers only, as Ridders' method assumes;
+        // the extrapolation recovers 2 (the derivative) to rounding.
+        let mut line = Script::new(0.0, |s: f64| Some(2.0 + s * s + s.powi(4)));
+        let e = estimate_from(&mut line, 0.1);
+        let s = check_step();
+        // Checks at s and s/2, then 64 and 64² times finer; then the
+        // extrapolation from 0.1, each row 1.4 times smaller.
+        let want = [s, s / 2.0, s / 64.0, s / 128.0, s / 4096.0, s / 8192.0];
+        assert_eq!(line.asked[..6], want);
+        assert_eq!(line.asked[6..9], [0.1, 0.1 / 1.4, 0.1 / 1.4 / 1.4]);
+        assert!((e.value - 2.0).abs() < 1e-13, "{e:?}");
+        assert!(e.error >= (e.value - 2.0).abs() && e.error < 1e-12, "{e:?}");
+        // The floor: 16ε·(|value| + Σ|terms|) = 16ε·4 at least.
+        assert!(e.error >= 64.0 * f64::EPSILON, "{e:?}");
+        assert!(e.conclusive, "{e:?}");
+        assert_eq!(e.evals, 2 * line.asked.len(), "{e:?}");
+        assert!(e.step > 0.0 && e.step <= 0.1, "{e:?}");
+        // `estimate` starts from 0.1·max(|x|, 1), the check from 2ε^(1/3)·max(|x|, 1).
+        let mut line = Script::new(-30.0, |s: f64| Some(2.0 + s * s));
+        estimate(&mut line);
+        assert_eq!(line.asked[0], 30.0 * s);
+        assert_eq!(line.asked[6], 3.0);
+    }
+
+    #[test]
+    fn an_extrapolation_off_the_checks_restarts_from_smaller_steps() {
+        // D jumps from 2 to 3 beyond s = 1e-3: from 0.1 every row sees 3 and
+        // extrapolates confidently to 3, which the checks (2) refute. The
+        // restarts go 8× down while above 64× the check step, then 64× down
+        // (DEVELOPERS.md, "Restarts"): 0.0125, 0.0015625, 0.0015625/64.
+        let mut line = Script::new(0.0, |s: f64| Some(if s > 1e-3 { 3.0 } else { 2.0 }));
+        let e = estimate_from(&mut line, 0.1);
+        for first in [0.0125, 0.0015625, 0.0015625 / 64.0] {
+            assert!(
+                line.asked.contains(&first),
+                "{first} not in {:?}",
+                line.asked
+            );
+        }
+        assert!(!line.asked.contains(&(0.0015625 / 8.0)));
+        assert_eq!(e.value, 2.0, "{e:?}");
+        assert!(e.conclusive, "{e:?}");
+        assert_eq!(e.evals, 2 * line.asked.len(), "{e:?}");
+    }
+
+    #[test]
+    fn the_error_bar_is_never_below_the_distance_to_the_check() {
+        // The checks see 2 + 1e-9 (D changes below s = 1e-4), the
+        // extrapolation from 0.1 sees 2 exactly: they fit within 10× the
+        // check's rounding, and the bar is their distance, 1e-9.
+        let mut line = Script::new(0.0, |s: f64| Some(if s < 1e-4 { 2.0 + 1e-9 } else { 2.0 }));
+        let e = estimate_from(&mut line, 0.1);
+        assert_eq!(e.value, 2.0, "{e:?}");
+        assert!((e.error - 1e-9).abs() < 1e-15, "{e:?}");
+        assert!(e.conclusive, "{e:?}");
+    }
+
+    #[test]
+    fn nothing_moved_is_never_conclusive() {
+        let mut line = Script::new(0.0, |s: f64| Some(2.0 + s * s));
+        line.touched = 0.0;
+        let e = estimate_from(&mut line, 0.1);
+        assert!(!e.conclusive, "{e:?}");
+        assert!((e.value - 2.0).abs() < 1e-13, "{e:?}");
+        // A forward not finite anywhere: NaN.
+        let e = estimate_from(&mut Script::new(0.0, |_| None), 0.1);
+        assert!(e.value.is_nan() && !e.conclusive, "{e:?}");
+    }
 }
