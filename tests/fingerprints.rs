@@ -541,3 +541,21 @@ fn a_sign_error_on_one_term_of_a_sum_is_not_a_subset_sign() {
         })
     });
 }
+
+#[test]
+fn two_negated_elements_without_a_pattern_are_partial_not_a_subset_sign() {
+    // β over 6 sensors with sensors 0 and 3 negated: no slice, block,
+    // parity or (with six elements) sign pattern describes them, and two
+    // undescribed elements are too few to call a subset sign.
+    for text in said("hive, sensor", &[4, 6], 3, |t, _, _| {
+        remap(t, |t, ix| {
+            if ix[0] == 0 || ix[0] == 3 {
+                -t[[ix[0]]]
+            } else {
+                t[[ix[0]]]
+            }
+        })
+    }) {
+        assert!(text.starts_with("partial: scattered"), "{text}");
+    }
+}
