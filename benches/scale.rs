@@ -303,6 +303,80 @@ fn main() {
         bug_seconds / planted as f64
     );
 
+    // --- cost table: elements → seconds, per scheme, every element vs screened.
+    println!("Cost (batch 1, one thread for every element; screened with run_parallel)");
+    println!(
+        "  {:>9} {:>11} {:>11} {:>11} {:>10}",
+        "elements", "complex", "central", "ridders", "screened"
+    );
+    let sizes: &[usize] = if quick {
+        &[8, 16]
+    } else {
+        &[32, 100, 316, 1000]
+    };
+    let mut cost = Vec::new();
+    for &n in sizes {
+        let a = args(7, 1, n, n);
+        let elements = n * n + 2 * n;
+        let (one_complex, one_real) = forward_times(&a, if quick { 3 } else { 21 });
+        let mut row = serde_json::Map::new();
+        row.insert("elements".into(), json!(elements));
+        let mut cells = Vec::new();
+        for scheme in [Scheme::ComplexStep, Scheme::Central, Scheme::Ridders] {
+            let one = if scheme == Scheme::ComplexStep {
+                one_complex
+            } else {
+                one_real
+            };
+            // Measured where it takes under a minute or so; above, the
+            // forwards per element measured at the smallest size times
+            // one forward here.
+            let per_element = match scheme {
+                Scheme::ComplexStep => 1.0,
+                Scheme::Central => 4.0,
+                _ => 26.8,
+            };
+            let estimate = elements as f64 * per_element * one;
+            let (seconds, measured) = if estimate < 20.0 {
+                let t = Instant::now();
+                let r = Audit::new()
+                    .scheme(scheme)
+                    .threads(1)
+                    .run_parallel(&layer, &a)
+                    .unwrap_or_else(|e| panic!("{e}"));
+                assert!(r.passed(), "{r}");
+                (t.elapsed().as_secs_f64(), true)
+            } else {
+                (estimate, false)
+            };
+            cells.push(if measured {
+                format!("{seconds:.3} s")
+            } else {
+                format!("~{seconds:.0} s")
+            });
+            row.insert(
+                scheme.to_string(),
+                json!({"seconds": seconds, "measured": measured}),
+            );
+        }
+        let t = Instant::now();
+        let r = Audit::new()
+            .coverage(Coverage::Screen)
+            .run_parallel(&layer, &a)
+            .unwrap_or_else(|e| panic!("{e}"));
+        assert!(r.passed(), "{r}");
+        let screened = t.elapsed().as_secs_f64();
+        row.insert(
+            "screened".into(),
+            json!({"seconds": screened, "forward_evals": r.forward_evals}),
+        );
+        println!(
+            "  {elements:>9} {:>11} {:>11} {:>11} {:>8.3} s",
+            cells[0], cells[1], cells[2], screened
+        );
+        cost.push(serde_json::Value::Object(row));
+    }
+
     let out = json!({
         "overhead": overhead,
         "threads": {"elements": elements, "t1_s": times[0], "t2_s": times[1], "speedup": (speedup * 100.0).round() / 100.0},
@@ -320,6 +394,7 @@ fn main() {
             "exhaustive_estimate_s": exhaustive.round(),
             "false_alarms": alarms,
         },
+        "cost": cost,
         "quick": quick,
     });
     let path = target_dir().join("bench-scale.json");
