@@ -8,94 +8,8 @@ use plumbline::audit::{Coverage, SCREEN_DIRECTIONS};
 use plumbline::prelude::*;
 use plumbline::Diagnosis;
 
-#[derive(Clone, Copy, Debug, PartialEq)]
-enum Bug {
-    None,
-    /// dW negated.
-    Sign,
-    /// dW doubled.
-    Twice,
-    /// One element of dW off by half its value plus 0.01.
-    OneElement,
-    /// Row 7 of dW scaled by 1.1.
-    OneRow,
-}
-
-/// y = tanh(W·x + b) for a batch of readings x.
-struct FrostZones {
-    bug: Bug,
-}
-
-impl Layer for FrostZones {
-    type Real = f64;
-    fn signature(&self) -> Signature {
-        Signature::new()
-            .input("x", "batch, station")
-            .param("w", "zone, station")
-            .param("b", "zone")
-            .output("y", "batch, zone")
-    }
-    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
-        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
-        let (n, i, o) = (x.shape()[0], x.shape()[1], w.shape()[0]);
-        let mut dpre = vec![0.0; n * o];
-        for s in 0..n {
-            for r in 0..o {
-                let z = b[[r]] + (0..i).map(|k| w[[r, k]] * x[[s, k]]).sum::<f64>();
-                let t = z.tanh();
-                dpre[s * o + r] = up[0][[s, r]] * (1.0 - t * t);
-            }
-        }
-        let dx = Tensor::from_fn(vec![n, i], |ix| {
-            (0..o).map(|r| dpre[ix[0] * o + r] * w[[r, ix[1]]]).sum()
-        });
-        let mut dw = Tensor::from_fn(vec![o, i], |ix| {
-            (0..n).map(|s| dpre[s * o + ix[0]] * x[[s, ix[1]]]).sum()
-        });
-        let db = Tensor::from_fn(vec![o], |ix| (0..n).map(|s| dpre[s * o + ix[0]]).sum());
-        match self.bug {
-            Bug::None => {}
-            Bug::Sign => dw = dw.map(|v: f64| -v),
-            Bug::Twice => dw = dw.map(|v: f64| 2.0 * v),
-            Bug::OneElement => dw[[3, 5]] = dw[[3, 5]] * 1.5 + 0.01,
-            Bug::OneRow => {
-                for k in 0..i {
-                    dw[[7, k]] *= 1.1;
-                }
-            }
-        }
-        Gradients::from(vec![dx, dw, db])
-    }
-}
-
-impl GenericForward for FrostZones {
-    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
-        let (x, w, b) = (a.input(0), a.param(0), a.param(1));
-        let (n, i, o) = (x.shape()[0], x.shape()[1], w.shape()[0]);
-        vec![Tensor::from_fn(vec![n, o], |ix| {
-            (0..i)
-                .fold(b[[ix[1]]], |z, k| z + w[[ix[1], k]] * x[[ix[0], k]])
-                .tanh()
-        })]
-    }
-}
-
-/// Demo readings: a fixed pseudo-random pattern per seed, weights scaled by
-/// 1/√stations so the tanh is not saturated.
-fn args(seed: u64, batch: usize, stations: usize, zones: usize) -> Args<f64> {
-    let mut state = seed.wrapping_mul(0x9E37_79B9_7F4A_7C15) | 1;
-    let mut next = move || {
-        state ^= state << 13;
-        state ^= state >> 7;
-        state ^= state << 17;
-        (state >> 11) as f64 / (1u64 << 53) as f64 * 2.0 - 1.0
-    };
-    let scale = 1.0 / (stations as f64).sqrt();
-    let x = Tensor::from_fn(vec![batch, stations], |_| next());
-    let w = Tensor::from_fn(vec![zones, stations], |_| next() * scale);
-    let b = Tensor::from_fn(vec![zones], |_| next() * 0.1);
-    Args::new(vec![x], vec![w, b])
-}
+mod common;
+use common::zones::{args, Bug, Zones as FrostZones};
 
 fn screened(bug: Bug, seed: u64) -> Report {
     Audit::new()
@@ -133,7 +47,7 @@ fn planted_bugs_fail_the_screen_and_are_located_and_named() {
         assert_eq!(w.diagnosis, Some(Diagnosis::SignFlipped), "{r}");
         assert!(r.row("x").unwrap().verdict.is_pass(), "{r}");
 
-        let r = screened(Bug::Twice, seed);
+        let r = screened(Bug::Factor, seed);
         let w = r.row("w").unwrap();
         assert!(
             matches!(w.diagnosis, Some(Diagnosis::Scaled { factor, .. }) if (factor - 2.0).abs() < 1e-9),

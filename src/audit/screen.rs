@@ -91,6 +91,14 @@ pub(crate) fn screen<L: Forward + ?Sized>(
         .filter(|&j| t.inputs[j].is_finite())
         .collect();
     let rounding = rounding_per_element(engine, t, &support, layer_eps)?;
+    let mut probe = Probe {
+        engine,
+        t,
+        support,
+        rounding,
+        tol,
+        layer_eps,
+    };
     let mut rng = rand::rngs::StdRng::seed_from_u64(
         seed ^ 0x05C2_EE4E_D1EC ^ (t.slot as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15),
     );
@@ -98,8 +106,8 @@ pub(crate) fn screen<L: Forward + ?Sized>(
     let mut failed: Option<Vec<f64>> = None;
     let mut disagreeing = 0;
     for _ in 0..directions {
-        let v: Vec<f64> = support.iter().map(|_| gaussian(&mut rng)).collect();
-        let check = along(engine, t, &support, &v, &rounding, tol, layer_eps)?;
+        let v: Vec<f64> = probe.support.iter().map(|_| gaussian(&mut rng)).collect();
+        let check = probe.along(0..probe.support.len(), &v)?;
         if !check.agrees() {
             disagreeing += 1;
             failed.get_or_insert(v);
@@ -108,39 +116,20 @@ pub(crate) fn screen<L: Forward + ?Sized>(
             worst = Some(check);
         }
     }
-    let suspects = match failed {
-        None => Vec::new(),
-        Some(v) => {
-            // A seeded sample first, each element along its own axis: a
-            // bug that touches many elements shows there, and the
-            // bisection is only needed for one that touches few.
-            let mut found = sample(&support, seed ^ t.slot as u64);
-            let mut located = 0;
-            if !any_disagrees(engine, t, &support, &found, &rounding, tol, layer_eps)? {
-                let narrowed = bisect(engine, t, &support, &v, &rounding, tol, layer_eps)?;
-                located = narrowed.len();
-                found.extend(narrowed);
-            }
-            found.sort_unstable();
-            found.dedup();
-            let w = worst.unwrap_or(Check {
-                analytic: f64::NAN,
-                numeric: f64::NAN,
-                bound: f64::NAN,
-            });
-            return Ok(Screened {
-                screen: Screen {
-                    directions,
-                    disagreeing,
-                    analytic: w.analytic,
-                    numeric: w.numeric,
-                    bound: w.bound,
-                    located,
-                },
-                suspects: found,
-            });
+    let (mut suspects, mut located) = (Vec::new(), 0);
+    if let Some(v) = failed {
+        // A seeded sample first, each element along its own axis: a bug
+        // that touches many elements shows there, and the bisection is
+        // only needed for one that touches few.
+        suspects = sample(&probe.support, seed ^ t.slot as u64);
+        if !probe.any_disagrees(&suspects)? {
+            let narrowed = probe.bisect(&v)?;
+            located = narrowed.len();
+            suspects.extend(narrowed);
         }
-    };
+        suspects.sort_unstable();
+        suspects.dedup();
+    }
     let w = worst.unwrap_or(Check {
         analytic: 0.0,
         numeric: 0.0,
@@ -153,7 +142,7 @@ pub(crate) fn screen<L: Forward + ?Sized>(
             analytic: w.analytic,
             numeric: w.numeric,
             bound: w.bound,
-            located: 0,
+            located,
         },
         suspects,
     })
@@ -178,103 +167,88 @@ fn rounding_per_element<L: Forward + ?Sized>(
         .collect()
 }
 
-/// ⟨g, v⟩ against the derivative of φ along v, over the elements `part`
-/// (flat positions), with their weights `v` and roundings `rounding`.
-fn along<L: Forward + ?Sized>(
-    engine: &mut Engine<'_, L>,
-    t: &Target<'_>,
-    part: &[usize],
-    v: &[f64],
-    rounding: &[f64],
-    tol: &Tolerance,
+/// What every directional test of one tensor shares.
+struct Probe<'p, 'e, 'a, L: Forward + ?Sized> {
+    engine: &'p mut Engine<'e, L>,
+    t: &'p Target<'a>,
+    /// The elements that can move (finite inputs), ascending.
+    support: Vec<usize>,
+    /// Their roundings in the backward, in the same order.
+    rounding: Vec<f64>,
+    tol: &'p Tolerance,
     layer_eps: f64,
-) -> Result<Check, Error> {
-    let g = t.grad.data();
-    let direction: Vec<(usize, f64)> = part.iter().copied().zip(v.iter().copied()).collect();
-    let analytic: f64 = direction.iter().map(|&(j, vj)| g[j] * vj).sum();
-    let projected = part
-        .iter()
-        .zip(v)
-        .zip(rounding)
-        .map(|((_, vj), r)| (vj * r) * (vj * r))
-        .sum::<f64>()
-        .sqrt();
-    let mut est = engine.directional(t.slot, &direction, t.scheme)?;
-    est.error += SIGMAS * projected;
-    let bound = tol.bound(&est, analytic, layer_eps);
-    Ok(Check {
-        analytic,
-        numeric: est.value,
-        bound,
-    })
 }
 
-/// `true` if any of the elements `picks` disagrees on its own (its axis as
-/// the direction).
-fn any_disagrees<L: Forward + ?Sized>(
-    engine: &mut Engine<'_, L>,
-    t: &Target<'_>,
-    support: &[usize],
-    picks: &[usize],
-    rounding: &[f64],
-    tol: &Tolerance,
-    layer_eps: f64,
-) -> Result<bool, Error> {
-    for &j in picks {
-        let Ok(k) = support.binary_search(&j) else {
-            continue;
-        };
-        if !along(engine, t, &[j], &[1.0], &rounding[k..=k], tol, layer_eps)?.agrees() {
-            return Ok(true);
-        }
+impl<L: Forward + ?Sized> Probe<'_, '_, '_, L> {
+    /// ⟨g, v⟩ against the derivative of φ along v, over the elements at
+    /// positions `part` of the support, with their weights `v` (one per
+    /// position of `part`).
+    fn along(&mut self, part: std::ops::Range<usize>, v: &[f64]) -> Result<Check, Error> {
+        let g = self.t.grad.data();
+        let elements = &self.support[part.clone()];
+        let direction: Vec<(usize, f64)> =
+            elements.iter().copied().zip(v.iter().copied()).collect();
+        let analytic: f64 = direction.iter().map(|&(j, vj)| g[j] * vj).sum();
+        let projected = v
+            .iter()
+            .zip(&self.rounding[part])
+            .map(|(vj, r)| (vj * r) * (vj * r))
+            .sum::<f64>()
+            .sqrt();
+        let mut est = self
+            .engine
+            .directional(self.t.slot, &direction, self.t.scheme)?;
+        est.error += SIGMAS * projected;
+        let bound = self.tol.bound(&est, analytic, self.layer_eps);
+        Ok(Check {
+            analytic,
+            numeric: est.value,
+            bound,
+        })
     }
-    Ok(false)
-}
 
-/// Splits the elements along a failed direction in halves, keeps the
-/// halves that still disagree (at most [`BRANCHES`] per level, the worst
-/// first), and returns the elements of the pieces of at most [`LEAF`]
-/// elements it reaches.
-fn bisect<L: Forward + ?Sized>(
-    engine: &mut Engine<'_, L>,
-    t: &Target<'_>,
-    support: &[usize],
-    v: &[f64],
-    rounding: &[f64],
-    tol: &Tolerance,
-    layer_eps: f64,
-) -> Result<Vec<usize>, Error> {
-    // Pieces are ranges of positions in `support`.
-    let mut level = vec![(0, support.len())];
-    let mut found = Vec::new();
-    while !level.is_empty() {
-        let mut next: Vec<((usize, usize), f64)> = Vec::new();
-        for (lo, hi) in level {
-            if hi - lo <= LEAF {
-                found.extend_from_slice(&support[lo..hi]);
+    /// `true` if any of the elements `picks` (flat positions) disagrees on
+    /// its own, its axis as the direction.
+    fn any_disagrees(&mut self, picks: &[usize]) -> Result<bool, Error> {
+        for &j in picks {
+            let Ok(k) = self.support.binary_search(&j) else {
                 continue;
+            };
+            if !self.along(k..k + 1, &[1.0])?.agrees() {
+                return Ok(true);
             }
-            let mid = lo + (hi - lo) / 2;
-            for (a, b) in [(lo, mid), (mid, hi)] {
-                let check = along(
-                    engine,
-                    t,
-                    &support[a..b],
-                    &v[a..b],
-                    &rounding[a..b],
-                    tol,
-                    layer_eps,
-                )?;
-                if !check.agrees() {
-                    next.push(((a, b), check.excess()));
+        }
+        Ok(false)
+    }
+
+    /// Splits the elements along a failed direction `v` in halves, keeps
+    /// the halves that still disagree (at most [`BRANCHES`] per level, the
+    /// worst first), and returns the elements of the pieces of at most
+    /// [`LEAF`] elements it reaches.
+    fn bisect(&mut self, v: &[f64]) -> Result<Vec<usize>, Error> {
+        let mut level = vec![0..self.support.len()];
+        let mut found = Vec::new();
+        while !level.is_empty() {
+            let mut next: Vec<(std::ops::Range<usize>, f64)> = Vec::new();
+            for piece in level {
+                if piece.len() <= LEAF {
+                    found.extend_from_slice(&self.support[piece]);
+                    continue;
+                }
+                let mid = piece.start + piece.len() / 2;
+                for half in [piece.start..mid, mid..piece.end] {
+                    let check = self.along(half.clone(), &v[half.clone()])?;
+                    if !check.agrees() {
+                        next.push((half, check.excess()));
+                    }
                 }
             }
+            next.sort_by(|x, y| y.1.total_cmp(&x.1));
+            next.truncate(BRANCHES);
+            level = next.into_iter().map(|(piece, _)| piece).collect();
         }
-        next.sort_by(|x, y| y.1.total_cmp(&x.1));
-        next.truncate(BRANCHES);
-        level = next.into_iter().map(|(piece, _)| piece).collect();
+        Ok(found)
     }
-    Ok(found)
 }
 
 /// A seeded sample of the tensor's elements, for the diagnosis.

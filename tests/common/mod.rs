@@ -3,6 +3,8 @@
 
 use std::marker::PhantomData;
 
+pub mod zones;
+
 use plumbline::{Args, GenericForward, Gradients, Layer, Real, Scalar, Signature, Tensor};
 
 /// Planted bugs in the dense layer's backward.
