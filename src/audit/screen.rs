@@ -226,7 +226,8 @@ impl<L: Forward + ?Sized> Probe<'_, '_, '_, L> {
     /// worst first), and returns the elements of the pieces of at most
     /// [`LEAF`] elements it reaches.
     fn bisect(&mut self, v: &[f64]) -> Result<Vec<usize>, Error> {
-        let mut level: Vec<std::ops::Range<usize>> = Vec::from([0..self.support.len()]);
+        let whole = 0..self.support.len();
+        let mut level = vec![whole];
         let mut found = Vec::new();
         while !level.is_empty() {
             let mut next: Vec<(std::ops::Range<usize>, f64)> = Vec::new();
