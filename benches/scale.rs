@@ -96,8 +96,10 @@ fn main() {
         println!(
             "  {scheme:<13} {evals:>7} forwards  {wall:>8.3} s  one forward {one:>9.3e} s  ratio {ratio:.2}"
         );
-        overhead.push(json!({"elements": elements, "scheme": scheme.to_string(), "forward_evals": evals,
-            "seconds": wall, "one_forward_s": one, "ratio": (ratio * 1000.0).round() / 1000.0}));
+        overhead.push(
+            json!({"elements": elements, "scheme": scheme.to_string(), "forward_evals": evals,
+            "seconds": wall, "one_forward_s": one, "ratio": (ratio * 1000.0).round() / 1000.0}),
+        );
     }
 
     // One warm-up audit, then one- and two-thread audits in turn; the

@@ -208,6 +208,7 @@ impl<G: GenericForward> Forward for G {
 
 pub(crate) mod sealed {
     use super::{Args, ComplexStep, GenericForward, Tensor};
+    use crate::scalar::Traced;
 
     /// The forward of a [`GenericForward`] at the two scalar types the
     /// audit uses for references. Implemented for every `GenericForward`;
@@ -217,6 +218,10 @@ pub(crate) mod sealed {
         fn forward_f64(&self, args: &Args<f64>) -> Vec<Tensor<f64>>;
         /// The forward with complex-step numbers over `f64`.
         fn forward_complex(&self, args: &Args<ComplexStep<f64>>) -> Vec<Tensor<ComplexStep<f64>>>;
+        /// The forward with running error bounds, for an `f64` layer.
+        fn forward_traced_f64(&self, args: &Args<Traced<f64>>) -> Vec<Tensor<Traced<f64>>>;
+        /// The forward with running error bounds, for an `f32` layer.
+        fn forward_traced_f32(&self, args: &Args<Traced<f32>>) -> Vec<Tensor<Traced<f32>>>;
     }
 
     impl<G: GenericForward> Reference for G {
@@ -224,6 +229,12 @@ pub(crate) mod sealed {
             self.forward_generic(args)
         }
         fn forward_complex(&self, args: &Args<ComplexStep<f64>>) -> Vec<Tensor<ComplexStep<f64>>> {
+            self.forward_generic(args)
+        }
+        fn forward_traced_f64(&self, args: &Args<Traced<f64>>) -> Vec<Tensor<Traced<f64>>> {
+            self.forward_generic(args)
+        }
+        fn forward_traced_f32(&self, args: &Args<Traced<f32>>) -> Vec<Tensor<Traced<f32>>> {
             self.forward_generic(args)
         }
     }

@@ -135,6 +135,40 @@ fn and_a_small_error_there_is_still_caught() {
     assert!(!r.passed(), "{r}");
 }
 
+#[test]
+fn deep_saturation_where_the_backward_keeps_few_digits_is_not_a_false_alarm() {
+    // At u = −16, 1 − tanh²u ≈ 5e-14 is computed from t = tanh u rounded
+    // next to −1: the backward keeps two or three digits of it, which the
+    // running error bound of the derivative carried through the generic
+    // forward shows (the complex step itself is accurate there). Before the
+    // bound, points in this range failed as "row scaled by 0.988"; before
+    // the joint kink test skipped moves that left φ unchanged, the rounding
+    // staircase of 1 + tanh u failed as "kinks share one gradient".
+    let mut caught = 0;
+    let chunks: Vec<Vec<f64>> = spread(-18.0, -8.0, 80)
+        .chunks(4)
+        .map(<[f64]>::to_vec)
+        .collect();
+    for (k, chunk) in chunks.iter().enumerate() {
+        let args = Args::new(vec![vector::<f64>(chunk)], vec![]);
+        let r = Audit::new()
+            .seed(k as u64)
+            .run(&CalmHive { factor: 1.0 }, &args)
+            .unwrap();
+        assert!(r.passed(), "{chunk:?}\n{r}");
+        let r = Audit::new()
+            .seed(k as u64)
+            .run(&CalmHive { factor: -1.0 }, &args)
+            .unwrap();
+        caught += usize::from(!r.passed());
+    }
+    // A sign error there is still caught: the bound is a few parts in a
+    // thousand of the gradient, not all of it. Known gap (measured: 19 of
+    // 20 groups caught): where the staircase is steep enough, the one-sided
+    // test reads every element as a kink, and kinks do not fail by default.
+    assert!(caught >= 18, "sign errors caught in {caught} of 20 groups");
+}
+
 // ----------------------------------------- 2. independent kinks together
 
 /// Frost degree-hours above 0 °C and a clipped sensor reading: y₀ = relu(x₀),

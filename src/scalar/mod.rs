@@ -7,8 +7,10 @@ use std::iter::Sum;
 use num_traits::{Float, NumAssign};
 
 mod complex_step;
+mod traced;
 
 pub use complex_step::{complex_step_derivative, ComplexStep};
+pub(crate) use traced::Traced;
 
 /// A scalar a generic forward pass can compute with.
 ///

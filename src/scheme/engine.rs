@@ -19,7 +19,7 @@ use crate::error::Error;
 use crate::format::num;
 use crate::layer::sealed::Reference;
 use crate::layer::{Args, Forward};
-use crate::scalar::{ComplexStep, Real};
+use crate::scalar::{ComplexStep, Real, Traced};
 use crate::tensor::{MultiIndex, Tensor};
 
 /// The message of a caught panic.
@@ -36,6 +36,22 @@ pub(crate) fn panic_message(payload: &(dyn std::any::Any + Send)) -> String {
 /// Runs `f`, turning a panic into its message.
 pub(crate) fn guarded<T>(f: impl FnOnce() -> T) -> Result<T, String> {
     catch_unwind(AssertUnwindSafe(f)).map_err(|p| panic_message(p.as_ref()))
+}
+
+/// Σᵢ f(wᵢ, yᵢ) over every output element, or `None` when the outputs do
+/// not match the weights' shapes.
+fn weigh<U>(w: &[Vec<f64>], y: &[Tensor<U>], f: impl Fn(f64, &U) -> f64) -> Option<f64> {
+    if y.len() != w.len() {
+        return None;
+    }
+    let mut total = 0.0;
+    for (t, ws) in y.iter().zip(w) {
+        if t.len() != ws.len() {
+            return None;
+        }
+        total += t.data().iter().zip(ws).map(|(v, &w)| f(w, v)).sum::<f64>();
+    }
+    Some(total)
 }
 
 /// A working copy of the arguments in one precision, with the forward's
@@ -1027,6 +1043,12 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             let touched = first.forward_scale * x.abs().max(1.0);
             e.forward_scale = e.forward_scale.max(touched * decay);
         }
+        // What the backward's own formulas lose here (a generic forward
+        // only): `1 − t²` at saturation, a cancelling series.
+        if let Some(b) = self.backward_rounding(slot, j) {
+            e.error += b;
+            e.evals += 1;
+        }
         if scheme == Scheme::ComplexStep {
             let h = complex::step_for(x);
             let twice = self.complex_along(slot, &[(j, 1.0)], 2.0 * h)?;
@@ -1043,6 +1065,37 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             e.error += 4.0 * look.noise / (e.step / 16.0);
         }
         Ok(Some(e))
+    }
+
+    /// What a backward that follows the generic forward's formulas can
+    /// lose on element `j` of tensor `slot`, in absolute terms: the running
+    /// error bound of Σᵢ wᵢ ∂yᵢ/∂x computed in forward mode, in the layer's
+    /// own precision, with each function's derivative taken from the usual
+    /// formula ([`Traced`]). `None` for a plain layer, a forward that
+    /// panics, or a bound that is not finite (which must not silence the
+    /// element).
+    fn backward_rounding(&mut self, slot: usize, j: usize) -> Option<f64> {
+        let generic = self.generic?;
+        let own = &self.own.args;
+        let mut a = own.map(|x| Traced::input(x.as_f64(), 0.0));
+        a.all_mut()[slot].data_mut()[j].d = 1.0;
+        let wide = guarded(|| generic.forward_traced_f64(&a)).ok()?;
+        self.evals += 1;
+        let total = if L::Real::EPS < 1e-10 {
+            let u = f64::EPSILON / 2.0;
+            weigh(&self.w_per_output, &wide, |w, v| w.abs() * v.ed * u)?
+        } else {
+            // `Real` is sealed to f32 and f64.
+            #[allow(clippy::cast_possible_truncation)]
+            let mut a = own.map(|x| Traced::input(x.as_f64() as f32, 0.0));
+            a.all_mut()[slot].data_mut()[j].d = 1.0;
+            let narrow = guarded(|| generic.forward_traced_f32(&a)).ok()?;
+            self.evals += 1;
+            let exact = weigh(&self.w_per_output, &wide, |w, v| w * v.d)?;
+            let own = weigh(&self.w_per_output, &narrow, |w, v| w * f64::from(v.d))?;
+            (own - exact).abs()
+        };
+        total.is_finite().then_some(total)
     }
 
     /// The scatter of the complex-step derivative when x moves by a few
