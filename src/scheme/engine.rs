@@ -65,6 +65,11 @@ pub(crate) struct Working<U> {
     diff: Vec<f64>,
     /// `diff` of the `+h` end of the current pair.
     kept: Vec<f64>,
+    /// Per output, the magnitude its rounding acts on when that exceeds
+    /// the output itself: the running error bound of the forward at the
+    /// point over ε (`1 + tanh u` at u = −16 is 5e-14 but rounds like 1).
+    /// Empty when not measured.
+    rounds_like: Vec<f64>,
 }
 
 impl<U: Real> Working<U> {
@@ -79,6 +84,7 @@ impl<U: Real> Working<U> {
             base,
             diff: vec![0.0; n],
             kept: vec![0.0; n],
+            rounds_like: Vec::new(),
         }
     }
 }
@@ -172,6 +178,7 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
                     step,
                     delta: f64::NAN,
                     touched: 0.0,
+                    rounds_like: 0.0,
                     finite: false,
                 };
             }
@@ -181,6 +188,7 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
             step,
             delta: 0.0,
             touched: 0.0,
+            rounds_like: 0.0,
             finite: lengths_ok,
         };
         if !lengths_ok {
@@ -198,8 +206,11 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
             }
             if d != 0.0 {
                 let wi = self.w[i];
+                let like = self.work.rounds_like.get(i).copied().unwrap_or(0.0);
+                let size = yi.abs().max(b.abs());
                 sample.delta += wi * d;
-                sample.touched += wi.abs() * yi.abs().max(b.abs());
+                sample.touched += wi.abs() * size;
+                sample.rounds_like += wi.abs() * size.max(like);
             }
         }
         if !sample.finite {
@@ -689,7 +700,22 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
                 message,
             })?;
         self.evals += 1;
-        self.real = Some(Working::new(args, &base));
+        let mut work = Working::new(args, &base);
+        // The forward's own rounding at the point, by running error
+        // analysis (see `Traced`): real differences of a forward that
+        // cancels see a staircase of that height, not of ε·|y|.
+        let traced = work.args.map(|v| Traced::input(v, 0.0));
+        if let Ok(y) = guarded(|| generic.forward_traced_f64(&traced)) {
+            self.evals += 1;
+            let like: Vec<f64> = y
+                .iter()
+                .flat_map(|t| t.data().iter().map(|v| v.ev / 2.0))
+                .collect();
+            if like.len() == work.base.len() && like.iter().all(|v| v.is_finite()) {
+                work.rounds_like = like;
+            }
+        }
+        self.real = Some(work);
         Ok(())
     }
 

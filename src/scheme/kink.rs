@@ -191,7 +191,7 @@ impl OneSided {
         let touched = wide
             .iter()
             .chain(&narrow)
-            .map(|s| s.touched)
+            .map(|s| s.touched.max(s.rounds_like))
             .fold(0.0, f64::max);
         let rounding = 16.0 * line.eps() * touched;
         let sides = |[p, m]: [Sample; 2]| (-m.delta / -m.step, p.delta / p.step);

@@ -166,6 +166,11 @@ pub(crate) struct Sample {
     /// Σ|wᵢyᵢ| over the outputs that changed: what the forward's rounding
     /// acts on in this evaluation.
     pub touched: f64,
+    /// `touched` with each output's magnitude raised to what its rounding
+    /// acts on where that is known to be larger (a forward that cancels
+    /// rounds like its intermediates): the height of the staircase real
+    /// differences see, for the one-sided kink test.
+    pub rounds_like: f64,
     /// Every output was finite.
     pub finite: bool,
 }
@@ -413,6 +418,7 @@ impl<F: FnMut(f64) -> f64> Line for ScalarLine<F> {
             } else {
                 value.abs().max(self.at_x.abs())
             },
+            rounds_like: 0.0,
             finite: value.is_finite(),
         }
     }
