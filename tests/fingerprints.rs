@@ -559,3 +559,59 @@ fn two_negated_elements_without_a_pattern_are_partial_not_a_subset_sign() {
         assert!(text.starts_with("partial: scattered"), "{text}");
     }
 }
+
+/// Frost-hour weighting with one scalar sharpness parameter: y = κ·x².
+/// The planted backward forgets the square in κ's gradient (Σ g·x in place
+/// of Σ g·x²).
+struct FrostSharpness;
+
+impl Layer for FrostSharpness {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new()
+            .input("x", "hour")
+            .param("kappa", "")
+            .output("y", "hour")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let (x, k, g) = (a.input(0), a.param(0).data()[0], &up[0]);
+        let dx = Tensor::from_fn(x.shape().to_vec(), |ix| 2.0 * k * x[ix] * g[ix]);
+        let dk: f64 = x.data().iter().zip(g.data()).map(|(x, g)| x * g).sum();
+        Gradients::from(vec![dx, Tensor::new(vec![], vec![dk]).unwrap()])
+    }
+}
+
+impl GenericForward for FrostSharpness {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let k = a.param(0).data()[0];
+        vec![a.input(0).map(|x| k * x * x)]
+    }
+}
+
+#[test]
+fn a_wrong_scalar_reads_as_a_wrong_value_with_its_ratio_not_as_a_pattern() {
+    // One element: every factor "fits" it and no pattern can, so the text
+    // gives the ratio of analytic to numeric instead of a correlation
+    // (undefined for one point).
+    let x = Tensor::new(vec![3], vec![0.3, 1.7, -0.9]).unwrap();
+    let k = Tensor::new(vec![], vec![1.3]).unwrap();
+    let r = Audit::new()
+        .run(&FrostSharpness, &Args::new(vec![x], vec![k]))
+        .unwrap();
+    let row = r.row("kappa").unwrap();
+    let e = &row.elements[0];
+    let text = row.diagnosis.as_ref().unwrap().to_string();
+    assert!(!r.passed(), "{r}");
+    let number = text
+        .strip_prefix("wrong value (1 of 1): ")
+        .and_then(|t| t.strip_suffix(" times the reference"))
+        .unwrap_or_else(|| panic!("expected a wrong value with its ratio, got {text}\n{r}"));
+    // Σg·x over Σg·x² for these x and the audit's upstream weights: the
+    // number shown is the ratio of the row's own values, to its digits.
+    let shown: f64 = number.parse().unwrap();
+    let ratio = e.analytic / e.numeric;
+    assert!(
+        (shown - ratio).abs() <= 0.01 * ratio.abs(),
+        "{text} vs {ratio}"
+    );
+}

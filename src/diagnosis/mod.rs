@@ -334,11 +334,26 @@ impl fmt::Display for Diagnosis {
                 factor,
                 unexplained,
             } => {
+                if *of == 1 {
+                    // One element: any factor "fits", and no pattern can.
+                    return if factor.is_finite() {
+                        write!(
+                            f,
+                            "wrong value (1 of 1): {} times the reference",
+                            crate::format::short(*factor)
+                        )
+                    } else {
+                        f.write_str("wrong value (1 of 1)")
+                    };
+                }
+                f.write_str("wrong everywhere (")?;
                 write!(
                     f,
-                    "wrong everywhere ({of} of {of}): no sign, factor, axis order or slice pattern fits; correlation {}",
-                    crate::format::short(*correlation)
+                    "{of} of {of}): no sign, factor, axis order or slice pattern fits"
                 )?;
+                if correlation.is_finite() {
+                    write!(f, "; correlation {}", crate::format::short(*correlation))?;
+                }
                 if factor.is_finite() && unexplained.is_finite() {
                     write!(
                         f,
