@@ -546,3 +546,154 @@ pub(super) fn per_slice_text(axis: usize, rank: usize, factors: &[Option<f64>]) 
         short(hi)
     )
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::compare::ElementStatus;
+
+    /// An element check with a bound of 1e-6: agrees within it, disagrees
+    /// beyond it.
+    fn el(index: usize, analytic: f64, numeric: f64) -> ElementCheck {
+        let bound = 1e-6;
+        ElementCheck {
+            index,
+            analytic,
+            numeric,
+            error: 0.0,
+            scale: numeric.abs(),
+            bound,
+            decided: true,
+            status: if (analytic - numeric).abs() <= bound {
+                ElementStatus::Agrees
+            } else {
+                ElementStatus::Disagrees
+            },
+        }
+    }
+
+    #[test]
+    fn nothing_is_described_against_an_empty_rest() {
+        // Internal logic (`describe`): a condition must separate the set
+        // from the rest, and with no rest there is nothing to separate.
+        let inside = [vec![0, 0], vec![0, 1]];
+        assert_eq!(describe(&[2, 2], &inside, &[], &[]), None);
+        assert_eq!(
+            describe(&[2, 2], &inside, &[vec![1, 0], vec![1, 1]], &[]),
+            Some("row 0".to_string())
+        );
+    }
+
+    #[test]
+    fn blocks_of_three_slices_are_named() {
+        // Indices 0–2 of 6 against 3–5: block 0 of 2 (blocks of at least
+        // two slices; here three).
+        let inside: Vec<Vec<usize>> = (0..3).map(|i| vec![i]).collect();
+        let outside: Vec<Vec<usize>> = (3..6).map(|i| vec![i]).collect();
+        assert_eq!(
+            describe(&[6], &inside, &outside, &[]),
+            Some("block 0 of 2 along axis 0".to_string())
+        );
+    }
+
+    #[test]
+    fn several_whole_rows_are_listed() {
+        // Rows 0 and 3 of a 4×2 tensor against rows 1 and 2: no single row,
+        // block, parity or diagonal separates them; the list of whole rows
+        // does.
+        let rows = |rs: &[usize]| -> Vec<Vec<usize>> {
+            rs.iter().flat_map(|&r| [vec![r, 0], vec![r, 1]]).collect()
+        };
+        assert_eq!(
+            describe(&[4, 2], &rows(&[0, 3]), &rows(&[1, 2]), &[]),
+            Some("rows 0, 3".to_string())
+        );
+    }
+
+    #[test]
+    fn only_pinned_ratios_fit_a_slice_factor() {
+        // Internal logic (`scaled_per_slice`, `pinned`): a ratio counts when
+        // the bound is below 1% of |numeric|. Row 0 of a 2×5 tensor: factor
+        // 2 on two pinned elements, three tiny references (1e-9, bound 1e-6:
+        // not pinned) read 0 and agree; row 1: factor 0.5 throughout.
+        let mut smooth = vec![el(0, 2.0, 1.0), el(1, 4.0, 2.0)];
+        smooth.extend((2..5).map(|j| el(j, 0.0, 1e-9)));
+        smooth.extend((5..10).map(|j| el(j, 0.5 * j as f64, j as f64)));
+        assert_eq!(
+            scaled_per_slice(&[2, 5], &smooth),
+            Some(Diagnosis::ScaledPerSlice {
+                axis: 0,
+                rank: 2,
+                factors: vec![Some(2.0), Some(0.5)],
+            })
+        );
+    }
+
+    #[test]
+    fn a_subset_sign_needs_four_elements() {
+        // Internal logic (`sign_on_subset`): at least two flipped, one kept,
+        // and MIN_EVIDENCE + 1 = 4 elements in all. Row 0 of a 2×2 tensor
+        // flipped, one element of row 1 right: three, too few.
+        let three = [el(0, -1.0, 1.0), el(1, -2.0, 2.0), el(2, 3.0, 3.0)];
+        assert_eq!(sign_on_subset(&[2, 2], &three, &[]), None);
+        let four = [
+            el(0, -1.0, 1.0),
+            el(1, -2.0, 2.0),
+            el(2, 3.0, 3.0),
+            el(3, 4.0, 4.0),
+        ];
+        assert_eq!(
+            sign_on_subset(&[2, 2], &four, &[]),
+            Some(Diagnosis::SignFlippedOn {
+                subset: "row 0".to_string(),
+                flipped: 2,
+                of: 4
+            })
+        );
+    }
+
+    #[test]
+    fn a_tensor_matching_the_last_axes_is_placed_over_them() {
+        // Internal logic (`placements`): a 2×3 tensor against a rank-5
+        // tensor of shape 1×1×1×2×3 lines up with its last two axes.
+        let t = Tensor::new(vec![2, 3], (0..6).map(f64::from).collect()).unwrap();
+        let p = placements(&[1, 1, 1, 2, 3], &t);
+        let texts: Vec<&str> = p.iter().map(|p| p.text.as_str()).collect();
+        assert_eq!(texts, ["elementwise over the last 2 axes"]);
+        assert_eq!((p[0].at)(&[0, 0, 0, 1, 2]), Some(5.0));
+    }
+
+    #[test]
+    fn slice_factors_must_vary_and_any_rank_from_two_is_tried() {
+        // Internal logic (`scaled_per_slice`): rows of a 2×3×1 tensor with
+        // factors 2 and 0.5 are a per-slice scale along axis 0; one factor
+        // 2 on both rows is a common factor, not a per-slice one.
+        let rows = |k0: f64, k1: f64| -> Vec<ElementCheck> {
+            (0..6)
+                .map(|j| {
+                    let n = 1.0 + j as f64;
+                    el(j, if j < 3 { k0 } else { k1 } * n, n)
+                })
+                .collect()
+        };
+        assert_eq!(
+            scaled_per_slice(&[2, 3, 1], &rows(2.0, 0.5)),
+            Some(Diagnosis::ScaledPerSlice {
+                axis: 0,
+                rank: 3,
+                factors: vec![Some(2.0), Some(0.5)],
+            })
+        );
+        assert_eq!(scaled_per_slice(&[2, 3, 1], &rows(2.0, 2.0)), None);
+        // Factors within 1% of 1 (UNIT) are small mismatches, not scalings,
+        // even when they differ from row to row.
+        assert_eq!(scaled_per_slice(&[2, 3, 1], &rows(1.005, 0.995)), None);
+    }
+
+    #[test]
+    fn slices_of_a_matrix_are_rows_and_columns() {
+        assert_eq!(slice_name(2, 0, 1), "row 1");
+        assert_eq!(slice_name(2, 1, 4), "column 4");
+        assert_eq!(slice_name(3, 1, 0), "slice 0 of axis 1");
+    }
+}

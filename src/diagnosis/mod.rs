@@ -814,4 +814,299 @@ mod tests {
         assert_eq!(culprit(0.5, &[]).unwrap(), "1/2");
         assert!(culprit(0.37, &sizes).is_none());
     }
+
+    /// An element check with a bound of 1e-6: agrees within it, disagrees
+    /// beyond it.
+    fn el(index: usize, analytic: f64, numeric: f64) -> ElementCheck {
+        let bound = 1e-6;
+        ElementCheck {
+            index,
+            analytic,
+            numeric,
+            error: 0.0,
+            scale: numeric.abs(),
+            bound,
+            decided: true,
+            status: if (analytic - numeric).abs() <= bound {
+                ElementStatus::Agrees
+            } else {
+                ElementStatus::Disagrees
+            },
+        }
+    }
+
+    /// Diagnoses a rank-1 tensor whose gradient holds `analytic`, against
+    /// `numeric`, with no other evidence.
+    fn diagnose_pairs(analytic: &[f64], numeric: &[f64]) -> Option<Diagnosis> {
+        let n = analytic.len();
+        let grad = Tensor::new(vec![n], analytic.to_vec()).unwrap();
+        let el: Vec<ElementCheck> = (0..n).map(|j| el(j, analytic[j], numeric[j])).collect();
+        diagnose(&[n], Some(&grad), &el, None, &Evidence::default())
+    }
+
+    #[test]
+    fn a_factor_within_the_match_of_minus_one_is_a_sign_flip() {
+        // Internal logic: |k + 1| < FACTOR_MATCH (2e-3) reads as a flipped
+        // sign; further from −1 it is a factor.
+        let n = [1.0, 2.0, -3.0];
+        let scaled = |k: f64| n.map(|v| k * v);
+        assert_eq!(
+            diagnose_pairs(&scaled(-1.0), &n),
+            Some(Diagnosis::SignFlipped)
+        );
+        assert_eq!(
+            diagnose_pairs(&scaled(-1.001), &n),
+            Some(Diagnosis::SignFlipped)
+        );
+        match diagnose_pairs(&scaled(-1.003), &n) {
+            Some(Diagnosis::Scaled { factor, culprit }) => {
+                assert!((factor + 1.003).abs() < 1e-12 && culprit.is_none());
+            }
+            d => panic!("{d:?}"),
+        }
+    }
+
+    #[test]
+    fn one_significant_element_names_only_a_common_culprit() {
+        // Internal logic (comment in `diagnose`): a single element with a
+        // derivative fits any factor, so 3.7 is not named from it alone,
+        // while 2 (a common culprit) is.
+        let d = diagnose_pairs(&[3.7, 0.0], &[1.0, 0.0]);
+        assert!(
+            matches!(
+                d,
+                Some(Diagnosis::Partial {
+                    wrong: 1,
+                    of: 2,
+                    ..
+                })
+            ),
+            "{d:?}"
+        );
+        let d = diagnose_pairs(&[2.0, 0.0], &[1.0, 0.0]);
+        assert_eq!(
+            d,
+            Some(Diagnosis::Scaled {
+                factor: 2.0,
+                culprit: Some("2".to_string())
+            })
+        );
+    }
+
+    #[test]
+    fn only_kinks_that_all_fit_are_informational() {
+        assert!(Diagnosis::Kinks {
+            count: 2,
+            outside: 0
+        }
+        .is_informational());
+        assert!(!Diagnosis::Kinks {
+            count: 2,
+            outside: 1
+        }
+        .is_informational());
+        assert!(!Diagnosis::SignFlipped.is_informational());
+        assert!(!Diagnosis::Missing.is_informational());
+    }
+
+    #[test]
+    fn a_partial_failure_is_specific_only_with_a_pattern() {
+        let partial = |pattern: &str| Diagnosis::Partial {
+            wrong: 3,
+            of: 12,
+            pattern: pattern.to_string(),
+        };
+        assert!(!partial("scattered, first at [0, 1]").is_specific());
+        assert!(partial("all of row 0 (first slice of axis 0)").is_specific());
+        assert!(!Diagnosis::Kinks {
+            count: 1,
+            outside: 0
+        }
+        .is_specific());
+        assert!(Diagnosis::Missing.is_specific());
+    }
+
+    #[test]
+    fn reversals_and_block_orders_read_as_documented() {
+        // The texts of `Display`, from its rules: one axis or several; two
+        // blocks swapped, a cyclic shift (block j holds block j − s), or the
+        // order itself.
+        assert_eq!(
+            Diagnosis::Flipped { axes: vec![1] }.to_string(),
+            "flipped along axis 1"
+        );
+        assert_eq!(
+            Diagnosis::Flipped { axes: vec![2, 3] }.to_string(),
+            "flipped along axes 2, 3"
+        );
+        let blocks = |order: Vec<usize>| Diagnosis::BlocksPermuted {
+            axis: 1,
+            blocks: order.len(),
+            order,
+        };
+        assert_eq!(
+            blocks(vec![0, 2, 1]).to_string(),
+            "blocks 1 and 2 of axis 1 swapped (3 blocks)"
+        );
+        assert_eq!(
+            blocks(vec![2, 0, 1]).to_string(),
+            "blocks of axis 1 shifted by 1, cyclically (3 blocks)"
+        );
+        assert_eq!(
+            blocks(vec![2, 3, 0, 1]).to_string(),
+            "blocks of axis 1 shifted by 2, cyclically (4 blocks)"
+        );
+        assert_eq!(
+            blocks(vec![1, 0, 3, 2]).to_string(),
+            "blocks of axis 1 permuted: order 1, 0, 3, 2 (4 blocks)"
+        );
+    }
+
+    #[test]
+    fn tiny_reference_values_do_not_vote_on_the_factor() {
+        // Internal logic (`common_factor`): only elements whose reference is
+        // above its bound give a ratio. Three flipped elements and three
+        // whose reference (1e-9) is below the bound of 1e-6, with ratios of
+        // 50 that would outvote them: still a sign flip.
+        let d = diagnose_pairs(
+            &[-1.0, -2.0, -3.0, 5e-8, 5e-8, 5e-8],
+            &[1.0, 2.0, 3.0, 1e-9, 1e-9, 1e-9],
+        );
+        assert_eq!(d, Some(Diagnosis::SignFlipped));
+    }
+
+    #[test]
+    fn a_small_mismatch_must_go_one_way() {
+        // Internal logic (`small_mismatch`): every wrong element off by less
+        // than 1e-3 relative, all on the same side. The factor 1.0005 is too
+        // close to 1 to be a scaling (FACTOR_MATCH = 2e-3). The relative
+        // error |a − n|/max(|a|, |n|) = 5e-4/1.0005 for each.
+        let n = [1.0, -2.0, 3.0];
+        let d = diagnose_pairs(&n.map(|v| 1.0005 * v), &n);
+        match d {
+            Some(Diagnosis::SmallMismatch {
+                relative,
+                wrong: 3,
+                of: 3,
+            }) => {
+                assert!((relative - 5e-4 / 1.0005).abs() < 1e-12, "{relative}");
+            }
+            d => panic!("{d:?}"),
+        }
+        // Half above, half below: no consistent mismatch.
+        let d = diagnose_pairs(&[1.0005, -2.001, 2.9985, -4.002], &[1.0, -2.0, 3.0, -4.0]);
+        assert!(!matches!(d, Some(Diagnosis::SmallMismatch { .. })), "{d:?}");
+    }
+
+    #[test]
+    fn a_partial_failure_is_described_against_the_right_elements() {
+        // Wrong values (no factor, sign or order fits) at the even indices of
+        // six, right at the odd ones: the slice patterns find nothing, the
+        // index condition that separates wrong from right names them.
+        let d = diagnose_pairs(
+            &[5.0, 2.0, -7.0, 4.0, 0.3, 6.0],
+            &[1.0, 2.0, 3.0, 4.0, 5.0, 6.0],
+        );
+        assert_eq!(
+            d,
+            Some(Diagnosis::Partial {
+                wrong: 3,
+                of: 6,
+                pattern: "even indices of axis 0".to_string()
+            })
+        );
+    }
+
+    #[test]
+    fn a_common_factor_fits_every_element_within_its_slack() {
+        // Internal logic (`common_factor`): with k the median ratio, every
+        // element must satisfy |a − k·n| ≤ bound·max(|k|, 1) + 2e-3·|k·n|.
+        // 2.003 against k = 2 is within 2e-3·6 = 0.012 of 6: scaled by 2.
+        let d = diagnose_pairs(&[2.0, 4.0, 6.009], &[1.0, 2.0, 3.0]);
+        assert_eq!(
+            d,
+            Some(Diagnosis::Scaled {
+                factor: 2.0,
+                culprit: Some("2".to_string())
+            })
+        );
+        // 7.5 against 6 is not: no common factor.
+        let d = diagnose_pairs(&[2.0, 4.0, 7.5], &[1.0, 2.0, 3.0]);
+        assert!(!matches!(d, Some(Diagnosis::Scaled { .. })), "{d:?}");
+        // A factor below 1e-12 counts as 0 (doc comment: k = 0 is
+        // excluded): no scaling is named.
+        let d = diagnose_pairs(&[0.1, 0.2, 0.3], &[1e15, 2e15, 3e15]);
+        assert!(!matches!(d, Some(Diagnosis::Scaled { .. })), "{d:?}");
+    }
+
+    #[test]
+    fn culprits_match_within_the_relative_tolerance_and_skip_sizes_up_to_two() {
+        // Internal logic (`culprit`): a factor within FACTOR_MATCH (2e-3)
+        // relative of a common one is named; 2.003 is 1.5e-3 from 2. A size
+        // of 2 is never named as N (it would shadow the plain 2).
+        assert_eq!(culprit(2.003, &[]).as_deref(), Some("2"));
+        assert_eq!(
+            culprit(2.0, &[("pair".to_string(), 2)]).as_deref(),
+            Some("2")
+        );
+        assert_eq!(culprit(2.01, &[]), None);
+    }
+
+    #[test]
+    fn patterns_need_all_off_diagonal_elements_and_prefer_the_first_axis() {
+        // Internal logic (`pattern`): "every element but the diagonal" only
+        // when all n² − n are wrong; two off-diagonal elements in no common
+        // row or column are scattered. Elements sharing a slice on two axes
+        // (rank 3), neither slice whole: the first axis is named.
+        assert_eq!(pattern(&[3, 3], &[1, 5]), "scattered, first at [0, 1]");
+        assert_eq!(
+            pattern(&[2, 2, 3], &[0, 1]),
+            "part of first slice 0 of axis 0"
+        );
+    }
+
+    #[test]
+    fn a_gradient_with_axes_swapped_is_transposed() {
+        // Numeric n[i][j] of a 2×3 tensor returned as a 3×2 gradient g[j][i]
+        // = n[i][j]: transposed, axes 0 and 1. The elements carry NaN: no
+        // gradient of the right shape exists (doc of `ElementCheck`).
+        let numeric: Vec<f64> = (1..=6).map(f64::from).collect();
+        let mut g = vec![0.0; 6];
+        for i in 0..2 {
+            for j in 0..3 {
+                g[j * 2 + i] = numeric[i * 3 + j];
+            }
+        }
+        let grad = Tensor::new(vec![3, 2], g).unwrap();
+        let nan = |k: usize| ElementCheck {
+            status: ElementStatus::NotFinite,
+            ..el(k, f64::NAN, numeric[k])
+        };
+        let el6: Vec<ElementCheck> = (0..6).map(nan).collect();
+        let d = diagnose(&[2, 3], Some(&grad), &el6, None, &Evidence::default());
+        assert_eq!(d, Some(Diagnosis::Transposed { axes: (0, 1) }));
+        // A wrong value anywhere: only a wrong shape.
+        let mut bad = grad.data().to_vec();
+        bad[5] = -6.0;
+        let bad = Tensor::new(vec![3, 2], bad).unwrap();
+        let d = diagnose(&[2, 3], Some(&bad), &el6, None, &Evidence::default());
+        assert!(matches!(d, Some(Diagnosis::WrongShape { .. })), "{d:?}");
+        // Two elements (a 1×2 tensor returned as 2×1) are enough, and an
+        // axis of length 1 may take part when the shapes differ.
+        let grad = Tensor::new(vec![2, 1], vec![1.0, 2.0]).unwrap();
+        let el2: Vec<ElementCheck> = (0..2).map(nan).collect();
+        let d = diagnose(&[1, 2], Some(&grad), &el2, None, &Evidence::default());
+        assert_eq!(d, Some(Diagnosis::Transposed { axes: (0, 1) }));
+    }
+
+    #[test]
+    fn square_root_culprits_name_the_size() {
+        // Internal logic (`culprit`): √N and 1/√N of a named size above 2.
+        let heads = [("heads".to_string(), 9)];
+        assert_eq!(culprit(3.0, &heads).as_deref(), Some("√N (N = heads = 9)"));
+        assert_eq!(
+            culprit(-1.0 / 3.0, &heads).as_deref(),
+            Some("-1/√N (N = heads = 9)")
+        );
+    }
 }

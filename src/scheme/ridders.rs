@@ -361,4 +361,144 @@ mod tests {
         let e = estimate_from(&mut Script::new(0.0, |_| None), 0.1);
         assert!(e.value.is_nan() && !e.conclusive, "{e:?}");
     }
+
+    /// A line whose first six pairs (the checks of
+    /// `the_steps_follow_the_documented_ladder`) see D = 2 and every later
+    /// pair D = `later(s)`, which stays near 3: no extrapolation ever fits a
+    /// check, so `estimate_from` runs every restart its rules allow.
+    fn refuted(later: fn(f64) -> f64) -> Script<impl FnMut(f64) -> Option<f64>> {
+        let mut calls = 0;
+        Script::new(0.0, move |s| {
+            calls += 1;
+            Some(if calls <= 6 { 2.0 } else { later(s) })
+        })
+    }
+
+    /// A `refuted` line with D = 3 after the checks. A constant D stops
+    /// each extrapolation after its second row (the new row moves by
+    /// 0 ≥ STOP_RATIO × 0), so each pass asks exactly two steps, the first
+    /// of which is that pass's first step.
+    fn refuted_everywhere() -> Script<impl FnMut(f64) -> Option<f64>> {
+        refuted(|_| 3.0)
+    }
+
+    /// The first steps of the passes of a `refuted_everywhere` line.
+    fn first_steps(asked: &[f64]) -> Vec<f64> {
+        assert_eq!(asked.len() % 2, 0, "{asked:?}");
+        asked[6..].iter().step_by(2).copied().collect()
+    }
+
+    #[test]
+    fn restarts_stop_at_eight_times_the_finest_check_step() {
+        // Internal logic, from the restart rule in `estimate_from`: 8× down
+        // while first/8 ≥ 64·s, then 64× down, clamped at 8× the finest
+        // check's step (s/4096, so 8·s/4096), and no restart once first/8
+        // falls below that. From 0.1 with s = 2ε^(1/3): 0.0125, 0.0015625,
+        // 0.0015625/64, 0.0015625/64², then the clamp s/512.
+        let mut line = refuted_everywhere();
+        let e = estimate_from(&mut line, 0.1);
+        let s = check_step();
+        let want = [
+            0.1,
+            0.0125,
+            0.0015625,
+            0.0015625 / 64.0,
+            0.0015625 / 4096.0,
+            s / 512.0,
+        ];
+        assert_eq!(first_steps(&line.asked), want);
+        assert!(!e.conclusive, "{e:?}");
+        // No pass fits: the answer is the extrapolation (3), and its bar
+        // covers the distance to the check (2).
+        assert_eq!(e.value, 3.0, "{e:?}");
+        assert!(e.error >= 1.0, "{e:?}");
+        assert_eq!(e.evals, 2 * line.asked.len(), "{e:?}");
+        // Each later pass has a wider bar (the rounding 4ε/width grows as
+        // the steps shrink), so the first pass is the one kept: its value
+        // relied on its first step, 0.1.
+        assert_eq!(e.step, 0.1, "{e:?}");
+    }
+
+    #[test]
+    fn a_later_pass_replaces_the_kept_one_only_with_a_strictly_smaller_bar() {
+        // Internal logic, from the replacement rule in `estimate_from`
+        // (conclusive, or a strictly smaller error, or no finite error
+        // yet). With nothing moved (touched = 0) every pass of a constant
+        // D has the same bar, 16ε·(|3| + 3): the first pass is kept.
+        let mut line = refuted_everywhere();
+        line.touched = 0.0;
+        let e = estimate_from(&mut line, 0.1);
+        assert_eq!(first_steps(&line.asked).len(), 6, "{:?}", line.asked);
+        assert_eq!(e.step, 0.1, "{e:?}");
+        // D = 3 + s after the checks: an odd power, which the elimination
+        // does not remove, so a pass's bar shrinks with its first step and
+        // a later, narrower pass is kept.
+        let mut line = refuted(|s| 3.0 + s);
+        let e = estimate_from(&mut line, 0.1);
+        assert!(!e.conclusive, "{e:?}");
+        assert!(e.step < 0.01, "{e:?}");
+        assert!((e.value - 3.0).abs() < 0.01, "{e:?}");
+    }
+
+    #[test]
+    fn restarts_are_capped() {
+        // From a first step of 1e10 the 8× ladder alone would allow 14
+        // restarts before reaching 64·s; MAX_RESTARTS = 12 stops it, so
+        // the passes start at 1e10, 1e10/8, …, 1e10/8¹² (internal logic,
+        // from the loop condition in `estimate_from`).
+        let mut line = refuted_everywhere();
+        let e = estimate_from(&mut line, 1e10);
+        let firsts = first_steps(&line.asked);
+        assert_eq!(firsts.len(), 1 + MAX_RESTARTS, "{firsts:?}");
+        for (k, f) in firsts.iter().enumerate() {
+            assert_eq!(*f, 1e10 / 8f64.powi(k as i32));
+        }
+        assert!(!e.conclusive, "{e:?}");
+    }
+
+    #[test]
+    fn a_check_of_a_large_derivative_fits_within_a_billionth_of_it() {
+        // Internal logic, from `fits` and the final bar in `estimate_from`:
+        // an extrapolation fits a check within its error bar, room·rounding
+        // and 1e-9 of |check|; a finer check's distance, less its room,
+        // still widens the final bar. Here the extrapolation's steps see
+        // D = 1000 and the rounding is made negligible (touched = 1e-6:
+        // room·rounding below 1e-14), so only the relative 1e-9·1000 = 1e-6
+        // lets a check 5e-7 away fit, and the first pass from 0.1 is kept
+        // without a restart. The bar is that distance.
+        for first_check_moved in [true, false] {
+            // All checks below 1e-4 see 1000 + 5e-7; or only the finer ones
+            // (below 1e-6; the first check's steps s and s/2 are above it).
+            let edge = if first_check_moved { 1e-4 } else { 1e-6 };
+            let mut line = Script::new(0.0, move |s: f64| {
+                Some(if s < edge { 1000.0 + 5e-7 } else { 1000.0 })
+            });
+            line.touched = 1e-6;
+            let e = estimate_from(&mut line, 0.1);
+            assert_eq!(e.value, 1000.0, "{e:?}");
+            assert!(e.conclusive, "{e:?}");
+            assert!(!line.asked.contains(&0.0125), "{:?}", line.asked);
+            assert!((e.error - 5e-7).abs() < 1e-12, "{first_check_moved}: {e:?}");
+        }
+    }
+
+    #[test]
+    fn a_finer_check_is_kept_while_its_rounding_is_below_a_thousandth() {
+        // Internal logic, from `finer_checks`: a check at s/64 (and then
+        // s/4096) is kept while its rounding 2·4ε·touched/(step) stays at
+        // most 1e-3 of the derivative (here 2); the first one that fails
+        // ends the ladder. At s/64 that rounding is 9.39e-9·touched.
+        let s = check_step();
+        // touched = 1e5: 9.4e-4 at s/64 (kept), 6.0e-2 at s/4096 (dropped).
+        let mut line = Script::new(0.0, |_| Some(2.0));
+        line.touched = 1e5;
+        estimate_from(&mut line, 0.1);
+        let want = [s, s / 2.0, s / 64.0, s / 128.0, s / 4096.0, s / 8192.0, 0.1];
+        assert_eq!(line.asked[..7], want);
+        // touched = 1e6: 9.4e-3 at s/64, dropped, and no check beyond it.
+        let mut line = Script::new(0.0, |_| Some(2.0));
+        line.touched = 1e6;
+        estimate_from(&mut line, 0.1);
+        assert_eq!(line.asked[..5], [s, s / 2.0, s / 64.0, s / 128.0, 0.1]);
+    }
 }
