@@ -774,3 +774,54 @@ fn an_output_flushed_to_zero_neither_hides_a_bug_nor_raises_an_alarm() {
         assert_eq!(bad.rows[0].failing, 3, "{bad}");
     }
 }
+
+/// Frost-free odds that vanish deep in the cold: y = x·e^x (a swish-like
+/// gate, written the obvious way), with derivative (1 + x)·e^x.
+struct ColdGate {
+    factor: f64,
+}
+
+impl Layer for ColdGate {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new()
+            .input("x", "station")
+            .output("y", "station")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let x = a.input(0);
+        Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |ix| {
+            self.factor * (1.0 + x[ix]) * x[ix].exp() * up[0][ix]
+        })])
+    }
+}
+
+impl GenericForward for ColdGate {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        vec![a.input(0).map(|x| x * x.exp())]
+    }
+}
+
+#[test]
+fn gradients_near_the_bottom_of_the_f64_range_raise_no_alarm() {
+    // (1 + x)·e^x at x in −700..−680 is 1e-301..1e-293: the complex step's
+    // imaginary parts (h·φ′ with h = 1e-20·|x|) would be subnormal, where
+    // they keep only a few digits; the step is taken larger there, with
+    // its truncation measured. An exponent of e^(−700) ≈ 9.86e-305 (DLMF
+    // 4.2.19, e^x = Σ xⁿ/n!; value from the library exp, common practice).
+    for (k, chunk) in spread(-700.0, -680.0, 40).chunks(4).enumerate() {
+        let args = Args::new(vec![vector::<f64>(chunk)], vec![]);
+        let r = Audit::new()
+            .seed(k as u64)
+            .run(&ColdGate { factor: 1.0 }, &args)
+            .unwrap();
+        assert!(r.passed(), "{chunk:?}\n{r}");
+        // A factor of 1 + 1e-2 is still caught there (the resolution is
+        // coarser than at ordinary magnitudes: measured, about 1e-3).
+        let r = Audit::new()
+            .seed(k as u64)
+            .run(&ColdGate { factor: 1.0 + 1e-2 }, &args)
+            .unwrap();
+        assert!(!r.passed(), "{chunk:?}\n{r}");
+    }
+}

@@ -45,7 +45,8 @@ pub(crate) struct Directional {
     /// Σ |wᵢ Re yᵢ| over the outputs with a derivative.
     pub touched: f64,
     /// Σ |wᵢ| · (smallest subnormal) / h over outputs whose imaginary part
-    /// went subnormal: the granularity lost to underflow.
+    /// went subnormal or is exactly 0: the granularity lost to underflow
+    /// (a derivative below (smallest subnormal)/h reads as exactly 0).
     pub underflow: f64,
     /// The largest rounding amplification among the outputs with a
     /// derivative (see `Engine::measure_precision`).
@@ -77,6 +78,7 @@ pub(crate) fn read(
                 continue;
             }
             if yi.im == 0.0 {
+                d.underflow += wi.abs() * f64::from_bits(1) / h;
                 continue;
             }
             if let Some(&a) = amplification.get(k - 1) {
@@ -171,7 +173,10 @@ mod tests {
         assert!(d.finite, "{d:?}");
         assert!(close(d.value, -2.5) && close(d.terms, 5.5), "{d:?}");
         assert!(close(d.touched, 12.0), "{d:?}");
-        assert_eq!((d.underflow, d.amplification), (0.0, 1.0));
+        // The output with no imaginary part may hide a derivative below
+        // the step's granularity: |7|·2⁻¹⁰⁷⁴/1e-20.
+        assert!(close(d.underflow, 7.0 * f64::from_bits(1) / 1e-20), "{d:?}");
+        assert_eq!(d.amplification, 1.0);
         // Amplification: the largest among the outputs with a derivative
         // (100 belongs to the one without), never below 1.
         let d = read(&y, &w, 1e-20, &[3.0, 100.0, 0.5, 2.0]);
