@@ -550,27 +550,7 @@ pub(super) fn per_slice_text(axis: usize, rank: usize, factors: &[Option<f64>]) 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::compare::ElementStatus;
-
-    /// An element check with a bound of 1e-6: agrees within it, disagrees
-    /// beyond it.
-    fn el(index: usize, analytic: f64, numeric: f64) -> ElementCheck {
-        let bound = 1e-6;
-        ElementCheck {
-            index,
-            analytic,
-            numeric,
-            error: 0.0,
-            scale: numeric.abs(),
-            bound,
-            decided: true,
-            status: if (analytic - numeric).abs() <= bound {
-                ElementStatus::Agrees
-            } else {
-                ElementStatus::Disagrees
-            },
-        }
-    }
+    use crate::diagnosis::tests::el;
 
     #[test]
     fn nothing_is_described_against_an_empty_rest() {

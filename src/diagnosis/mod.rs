@@ -816,8 +816,8 @@ mod tests {
     }
 
     /// An element check with a bound of 1e-6: agrees within it, disagrees
-    /// beyond it.
-    fn el(index: usize, analytic: f64, numeric: f64) -> ElementCheck {
+    /// beyond it (also used by the fingerprints' tests).
+    pub(crate) fn el(index: usize, analytic: f64, numeric: f64) -> ElementCheck {
         let bound = 1e-6;
         ElementCheck {
             index,

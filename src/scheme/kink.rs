@@ -268,19 +268,7 @@ mod tests {
         fn at(&mut self, t: f64) -> Sample {
             self.asked.push(t);
             let xt = self.x + t;
-            let value = (self.f)(xt);
-            let delta = value - self.at_x;
-            Sample {
-                step: xt - self.x,
-                delta,
-                touched: if delta == 0.0 {
-                    0.0
-                } else {
-                    value.abs().max(self.at_x.abs())
-                },
-                finite: value.is_finite(),
-                ..Sample::default()
-            }
+            crate::scheme::scalar_sample(self.x, self.at_x, xt, (self.f)(xt))
         }
         fn pair(&mut self, _: f64) -> Pair {
             unreachable!("the kink test asks single moves")

@@ -399,6 +399,23 @@ impl<F: FnMut(f64) -> f64> ScalarLine<F> {
     }
 }
 
+/// The sample of a scalar function moved from `x` (value `at_x`) to `xt`
+/// (value `value`).
+pub(crate) fn scalar_sample(x: f64, at_x: f64, xt: f64, value: f64) -> Sample {
+    let delta = value - at_x;
+    Sample {
+        step: xt - x,
+        delta,
+        touched: if delta == 0.0 {
+            0.0
+        } else {
+            value.abs().max(at_x.abs())
+        },
+        rounds_like: 0.0,
+        finite: value.is_finite(),
+    }
+}
+
 impl<F: FnMut(f64) -> f64> Line for ScalarLine<F> {
     fn eps(&self) -> f64 {
         f64::EPSILON
@@ -408,19 +425,7 @@ impl<F: FnMut(f64) -> f64> Line for ScalarLine<F> {
     }
     fn at(&mut self, t: f64) -> Sample {
         let xt = self.x + t;
-        let value = (self.f)(xt);
-        let delta = value - self.at_x;
-        Sample {
-            step: xt - self.x,
-            delta,
-            touched: if delta == 0.0 {
-                0.0
-            } else {
-                value.abs().max(self.at_x.abs())
-            },
-            rounds_like: 0.0,
-            finite: value.is_finite(),
-        }
+        scalar_sample(self.x, self.at_x, xt, (self.f)(xt))
     }
     fn pair(&mut self, h: f64) -> Pair {
         let p = self.at(h);
