@@ -389,6 +389,11 @@ pub(crate) struct Engine<'a, L: Forward + ?Sized> {
     /// `f64` working copy of a generic forward (built on first use).
     real: Option<Working<f64>>,
     complex: Option<Args<ComplexStep<f64>>>,
+    /// Working copies for the running-error forwards of second looks
+    /// (built on first use; the seeded element is reset after each).
+    traced: Option<Args<Traced<f64>>>,
+    /// The same in `f32`, for an `f32` layer.
+    traced_f32: Option<Args<Traced<f32>>>,
     /// The upstream gradients the audit's backward calls use.
     upstream: Vec<Tensor<L::Real>>,
     /// The differentiable tensors (positions in `Args`), in gradient order.
@@ -468,6 +473,8 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             own: b.own,
             real: b.real,
             complex: b.complex,
+            traced: None,
+            traced_f32: None,
             upstream: b.upstream,
             movable: b.movable,
             spread: None,
@@ -503,6 +510,8 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             own: Working::new(args.clone(), outputs),
             real: None,
             complex: generic.map(|_| args.map(|v| ComplexStep::real(v.as_f64()))),
+            traced: None,
+            traced_f32: None,
             upstream,
             movable: Vec::new(),
             spread: None,
@@ -1136,20 +1145,28 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
     fn backward_rounding(&mut self, slot: usize, j: usize) -> Option<f64> {
         let generic = self.generic?;
         let own = &self.own.args;
-        let mut a = own.map(|x| Traced::input(x.as_f64(), 0.0));
-        a.all_mut()[slot].data_mut()[j].d = 1.0;
-        let wide = guarded(|| generic.forward_traced_f64(&a)).ok()?;
+        let wide_args = self
+            .traced
+            .get_or_insert_with(|| own.map(|x| Traced::input(x.as_f64(), 0.0)));
+        wide_args.all_mut()[slot].data_mut()[j].d = 1.0;
+        let wide = guarded(|| generic.forward_traced_f64(wide_args));
+        wide_args.all_mut()[slot].data_mut()[j].d = 0.0;
         self.evals += 1;
+        let wide = wide.ok()?;
         let total = if L::Real::EPS < 1e-10 {
             let u = f64::EPSILON / 2.0;
             weigh(&self.w_per_output, &wide, |w, v| w.abs() * v.ed * u)?
         } else {
-            // `Real` is sealed to f32 and f64.
+            // `Real` is sealed to f32 and f64: this is an f32 layer.
             #[allow(clippy::cast_possible_truncation)]
-            let mut a = own.map(|x| Traced::input(x.as_f64() as f32, 0.0));
-            a.all_mut()[slot].data_mut()[j].d = 1.0;
-            let narrow = guarded(|| generic.forward_traced_f32(&a)).ok()?;
+            let narrow_args = self
+                .traced_f32
+                .get_or_insert_with(|| own.map(|x| Traced::input(x.as_f64() as f32, 0.0)));
+            narrow_args.all_mut()[slot].data_mut()[j].d = 1.0;
+            let narrow = guarded(|| generic.forward_traced_f32(narrow_args));
+            narrow_args.all_mut()[slot].data_mut()[j].d = 0.0;
             self.evals += 1;
+            let narrow = narrow.ok()?;
             let exact = weigh(&self.w_per_output, &wide, |w, v| w * v.d)?;
             let own = weigh(&self.w_per_output, &narrow, |w, v| w * f64::from(v.d))?;
             (own - exact).abs()
