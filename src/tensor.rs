@@ -259,6 +259,87 @@ impl<T> IndexMut<&[usize]> for Tensor<T> {
     }
 }
 
+// ------------------------------------------------------------ approx
+
+/// Element-wise comparison with [`approx`]: tensors of different shapes are
+/// never equal, and NaN equals nothing (as for the scalars). So tensors can
+/// be compared in a user's own tests with `assert_abs_diff_eq!`,
+/// `assert_relative_eq!` and `assert_ulps_eq!`.
+///
+/// ```
+/// use approx::{assert_relative_eq, relative_ne};
+/// use plumbline::Tensor;
+/// let a = Tensor::new(vec![2], vec![1.0_f64, 2.0])?;
+/// let b = Tensor::new(vec![2], vec![1.0, 2.0 + 1e-13])?;
+/// assert_relative_eq!(a, b, max_relative = 1e-12);
+/// // Same values, another shape: not equal.
+/// let c = Tensor::new(vec![1, 2], vec![1.0, 2.0])?;
+/// assert!(relative_ne!(a, c));
+/// # Ok::<(), plumbline::Error>(())
+/// ```
+impl<T: approx::AbsDiffEq> approx::AbsDiffEq for Tensor<T>
+where
+    T::Epsilon: Copy,
+{
+    type Epsilon = T::Epsilon;
+
+    fn default_epsilon() -> Self::Epsilon {
+        T::default_epsilon()
+    }
+
+    fn abs_diff_eq(&self, other: &Self, epsilon: Self::Epsilon) -> bool {
+        self.shape == other.shape
+            && self
+                .data
+                .iter()
+                .zip(&other.data)
+                .all(|(a, b)| a.abs_diff_eq(b, epsilon))
+    }
+}
+
+/// See the [`AbsDiffEq`](approx::AbsDiffEq) implementation.
+impl<T: approx::RelativeEq> approx::RelativeEq for Tensor<T>
+where
+    T::Epsilon: Copy,
+{
+    fn default_max_relative() -> Self::Epsilon {
+        T::default_max_relative()
+    }
+
+    fn relative_eq(
+        &self,
+        other: &Self,
+        epsilon: Self::Epsilon,
+        max_relative: Self::Epsilon,
+    ) -> bool {
+        self.shape == other.shape
+            && self
+                .data
+                .iter()
+                .zip(&other.data)
+                .all(|(a, b)| a.relative_eq(b, epsilon, max_relative))
+    }
+}
+
+/// See the [`AbsDiffEq`](approx::AbsDiffEq) implementation.
+impl<T: approx::UlpsEq> approx::UlpsEq for Tensor<T>
+where
+    T::Epsilon: Copy,
+{
+    fn default_max_ulps() -> u32 {
+        T::default_max_ulps()
+    }
+
+    fn ulps_eq(&self, other: &Self, epsilon: Self::Epsilon, max_ulps: u32) -> bool {
+        self.shape == other.shape
+            && self
+                .data
+                .iter()
+                .zip(&other.data)
+                .all(|(a, b)| a.ulps_eq(b, epsilon, max_ulps))
+    }
+}
+
 /// A multi-index into a tensor, rendered as `[i, j, k]` in reports.
 ///
 /// ```
@@ -298,6 +379,33 @@ impl fmt::Display for MultiIndex {
 
 #[cfg(test)]
 mod tests {
+    use approx::{abs_diff_eq, relative_eq, ulps_eq};
+
+    #[test]
+    fn approx_compares_element_wise_and_never_across_shapes_or_nan() {
+        let t = |shape: Vec<usize>, v: Vec<f64>| Tensor::new(shape, v).unwrap();
+        let a = t(vec![2, 2], vec![1.0, -2.0, 3.0, 0.0]);
+        // One element off by 1e-12: inside 1e-11 either way, outside 1e-13.
+        let b = t(vec![2, 2], vec![1.0, -2.0 + 1e-12, 3.0, 0.0]);
+        assert!(abs_diff_eq!(a, b, epsilon = 1e-11));
+        assert!(!abs_diff_eq!(a, b, epsilon = 1e-13));
+        assert!(relative_eq!(a, b, max_relative = 1e-11));
+        assert!(!relative_eq!(a, b, max_relative = 1e-13));
+        // −2 + 1e-12 lies in (−2, −1], where an ulp is 2⁻⁵² ≈ 2.2e-16
+        // (IEEE 754 binary64): about 4500 ulps from −2.
+        assert!(ulps_eq!(a, b, max_ulps = 8192));
+        assert!(!ulps_eq!(a, b, max_ulps = 2048));
+        // The same data in another shape is never equal.
+        let c = t(vec![4], vec![1.0, -2.0, 3.0, 0.0]);
+        assert!(!abs_diff_eq!(a, c, epsilon = 1.0));
+        assert!(!relative_eq!(a, c, max_relative = 1.0));
+        assert!(!ulps_eq!(a, c, max_ulps = u32::MAX));
+        // NaN equals nothing, itself included.
+        let n = t(vec![2, 2], vec![1.0, f64::NAN, 3.0, 0.0]);
+        assert!(!abs_diff_eq!(n, n.clone(), epsilon = f64::INFINITY));
+        assert!(!relative_eq!(n, n.clone(), max_relative = 1.0));
+    }
+
     use super::*;
 
     #[test]
