@@ -261,6 +261,13 @@ impl<T> IndexMut<&[usize]> for Tensor<T> {
 
 // ------------------------------------------------------------ approx
 
+impl<T> Tensor<T> {
+    /// Same shape, and `eq` holds for every pair of elements.
+    fn pairwise(&self, other: &Self, eq: impl Fn(&T, &T) -> bool) -> bool {
+        self.shape == other.shape && self.data.iter().zip(&other.data).all(|(a, b)| eq(a, b))
+    }
+}
+
 /// Element-wise comparison with [`approx`]: tensors of different shapes are
 /// never equal, and NaN equals nothing (as for the scalars). So tensors can
 /// be compared in a user's own tests with `assert_abs_diff_eq!`,
@@ -288,12 +295,7 @@ where
     }
 
     fn abs_diff_eq(&self, other: &Self, epsilon: Self::Epsilon) -> bool {
-        self.shape == other.shape
-            && self
-                .data
-                .iter()
-                .zip(&other.data)
-                .all(|(a, b)| a.abs_diff_eq(b, epsilon))
+        self.pairwise(other, |a, b| a.abs_diff_eq(b, epsilon))
     }
 }
 
@@ -312,12 +314,7 @@ where
         epsilon: Self::Epsilon,
         max_relative: Self::Epsilon,
     ) -> bool {
-        self.shape == other.shape
-            && self
-                .data
-                .iter()
-                .zip(&other.data)
-                .all(|(a, b)| a.relative_eq(b, epsilon, max_relative))
+        self.pairwise(other, |a, b| a.relative_eq(b, epsilon, max_relative))
     }
 }
 
@@ -331,12 +328,7 @@ where
     }
 
     fn ulps_eq(&self, other: &Self, epsilon: Self::Epsilon, max_ulps: u32) -> bool {
-        self.shape == other.shape
-            && self
-                .data
-                .iter()
-                .zip(&other.data)
-                .all(|(a, b)| a.ulps_eq(b, epsilon, max_ulps))
+        self.pairwise(other, |a, b| a.ulps_eq(b, epsilon, max_ulps))
     }
 }
 
