@@ -360,7 +360,7 @@ fn spread_offsets<R: Real>() -> [f64; 6] {
 
 /// Where h·Σ|terms| of a complex-step derivative falls below this (2¹⁰⁰
 /// times the smallest normal number), the step is taken larger.
-const NEAR_SUBNORMAL: f64 = f64::MIN_POSITIVE * 1_267_650_600_228_229_401_496_703_205_376.0;
+const NEAR_SUBNORMAL: f64 = f64::MIN_POSITIVE * (1u128 << 100) as f64;
 
 /// Step of the kink test, as a multiple of ε^(1/3)·max(|x|, ε^(1/3)):
 /// small enough that a smooth φ's curvature cannot pass for a kink, and
@@ -971,6 +971,7 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             } else {
                 x.abs().max(1.0)
             };
+            // Aim h·Σ|terms| another 2²⁰⁰ higher, well inside the normals.
             let wide = (NEAR_SUBNORMAL * 2f64.powi(200) / d.terms)
                 .min(1e-6 * room)
                 .max(h);
