@@ -825,3 +825,69 @@ fn gradients_near_the_bottom_of_the_f64_range_raise_no_alarm() {
         assert!(!r.passed(), "{chunk:?}\n{r}");
     }
 }
+
+// ------------------------------- 7. forwards that round to a staircase
+
+/// Frost-pocket depth from a small dew-point excursion x (plain `f32`):
+/// y = (ln(1 + x²) + c)² − c², written the obvious way. For |x| ~ 10⁻⁵ and
+/// c = 265 the squares are near 7·10⁴, whose `f32` ulp is 2⁻⁷ ≈ 0.008,
+/// while y itself is ~10⁻⁷: the forward is a staircase whose stairs are far
+/// higher than its outputs' ulps, flat over small steps and not over large
+/// ones. The exact derivative 2(ln(1 + x²) + c)·2x/(1 + x²) is not
+/// resolvable from it at small steps. `stray` plants a gradient on a
+/// parameter the forward never reads.
+struct FrostPocket {
+    stray: bool,
+}
+
+impl Layer for FrostPocket {
+    type Real = f32;
+    fn signature(&self) -> Signature {
+        Signature::new()
+            .input("x", "4")
+            .param("unused", "1")
+            .output("y", "4")
+    }
+    fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
+        let (x, c) = (a.input(0), 265.0_f32);
+        let dx = Tensor::from_fn(vec![4], |ix| {
+            let v = x[ix];
+            let l = (1.0 + v * v).ln();
+            2.0 * (l + c) * 2.0 * v / (1.0 + v * v) * up[0][ix]
+        });
+        let du = if self.stray { 0.5 } else { 0.0 };
+        Gradients::from(vec![dx, Tensor::new(vec![1], vec![du]).unwrap()])
+    }
+}
+
+impl Forward for FrostPocket {
+    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
+        let (x, c) = (a.input(0), 265.0_f32);
+        vec![x.map(|v| {
+            let l = (1.0 + v * v).ln();
+            (l + c) * (l + c) - c * c
+        })]
+    }
+}
+
+#[test]
+fn a_forward_that_rounds_to_a_staircase_is_not_a_false_alarm() {
+    for k in 0..100 {
+        let t = k as f64 / 100.0;
+        let x: Vec<f64> = (0..4).map(|i| (t - 0.5 + 0.2 * i as f64) * 1e-4).collect();
+        let args = Args::new(vec![vector::<f32>(&x)], vec![vector::<f32>(&[0.0])]);
+        let r = Audit::new()
+            .seed(k)
+            .run(&FrostPocket { stray: false }, &args)
+            .unwrap();
+        assert!(r.passed(), "case {k}: {r}");
+        // The stairs excuse nothing where the forward never moves: a
+        // gradient on a parameter it does not read is still caught.
+        let r = Audit::new()
+            .seed(k)
+            .run(&FrostPocket { stray: true }, &args)
+            .unwrap();
+        assert!(!r.passed(), "case {k}: {r}");
+        assert!(r.row("x").unwrap().failing == 0, "case {k}: {r}");
+    }
+}

@@ -108,6 +108,12 @@ struct ArgLine<'a, U: Real, F> {
     targets: Vec<(usize, U, f64)>,
     evals: usize,
     caught: Option<Caught>,
+    /// The smallest non-zero change of φ seen by the central differences
+    /// taken: |φ(x+h) − φ(x−h)|, |φ(x±h) − φ(x)| (∞ before any moved).
+    smallest_move: f64,
+    /// The widest width 2h over which φ did not change at all (0 when
+    /// every difference moved).
+    widest_flat: f64,
 }
 
 impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
@@ -130,6 +136,23 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
             targets,
             evals: 0,
             caught: None,
+            smallest_move: f64::INFINITY,
+            widest_flat: 0.0,
+        }
+    }
+
+    /// The derivative a forward that rounds to a staircase cannot resolve
+    /// along this line: where φ(x+h) = φ(x−h) exactly while φ moved
+    /// elsewhere, its stairs are at most as high as the smallest move seen,
+    /// and any |φ′| up to (smallest move)/2h fits the flat difference; the
+    /// widest flat difference gives the tightest such limit. 0 when no
+    /// difference was flat, or nothing moved (a φ that never moves is
+    /// evidence of a zero derivative, not of rounding).
+    fn staircase_floor(&self) -> f64 {
+        if self.widest_flat > 0.0 && self.smallest_move.is_finite() {
+            self.smallest_move / self.widest_flat
+        } else {
+            0.0
         }
     }
 
@@ -237,6 +260,17 @@ impl<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> Line for ArgLine<'_, U, F> {
         std::mem::swap(&mut self.work.diff, &mut self.work.kept);
         let m = self.eval(-h);
         let width = p.step - m.step;
+        if p.finite && m.finite && width > 0.0 {
+            let moved = (p.delta - m.delta).abs();
+            if moved == 0.0 {
+                self.widest_flat = self.widest_flat.max(width);
+            }
+            for change in [moved, p.delta.abs(), m.delta.abs()] {
+                if change > 0.0 && change.is_finite() {
+                    self.smallest_move = self.smallest_move.min(change);
+                }
+            }
+        }
         let (mut terms, mut still) = (0.0_f64, 0.0_f64);
         for (((a, b), w), y) in self
             .work
@@ -299,8 +333,22 @@ fn ask<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
 ) -> Result<Answer, Caught> {
     let mut line = ArgLine::new(work, forward, w, slot.0, slot.1, targets);
     let answer = match question {
-        Ask::Estimate(Scheme::Central) => Answer::Estimate(central::estimate(&mut line)),
-        Ask::Estimate(_) => Answer::Estimate(ridders::estimate(&mut line)),
+        Ask::Estimate(scheme) => {
+            let mut e = match scheme {
+                Scheme::Central => central::estimate(&mut line),
+                _ => ridders::estimate(&mut line),
+            };
+            // A forward whose hidden intermediates round in steps far
+            // coarser than its outputs (a difference of squares of 10² in
+            // `f32`) is flat over some steps and not others; what it cannot
+            // resolve is part of the error bar.
+            let floor = line.staircase_floor();
+            if floor > e.error {
+                e.error = floor;
+                e.conclusive = false;
+            }
+            Answer::Estimate(e)
+        }
         Ask::Check => Answer::Check(ridders::small_step_check(&mut line)),
         Ask::Pair(h) => Answer::Pair(line.pair(h)),
         Ask::Look => Answer::Look(look(&mut line)),
