@@ -106,19 +106,27 @@ impl Report {
 /// ```
 #[macro_export]
 macro_rules! assert_backward {
+    // `match` keeps a layer built in the call (`FnLayer::new(..)`, a
+    // function's result) alive until the audit is done.
     ($layer:expr, $args:expr $(,)?) => {{
         #[allow(unused_imports)]
         use $crate::{__Audited as _, __OnOneThread as _, __OnThreads as _};
-        let layer = ($layer).__audited();
-        let entry = (&$crate::__Pick(layer)).__entry();
-        $crate::__assert_backward(layer, $args, |audit| audit, entry)
+        match ($layer).__audited() {
+            layer => {
+                let entry = (&$crate::__Pick(layer)).__entry();
+                $crate::__assert_backward(layer, $args, |audit| audit, entry)
+            }
+        }
     }};
     ($layer:expr, $args:expr, $($key:ident = $value:expr),+ $(,)?) => {{
         #[allow(unused_imports)]
         use $crate::{__Audited as _, __OnOneThread as _, __OnThreads as _};
-        let layer = ($layer).__audited();
-        let entry = (&$crate::__Pick(layer)).__entry();
-        $crate::__assert_backward(layer, $args, |audit| audit $(.$key($value))+, entry)
+        match ($layer).__audited() {
+            layer => {
+                let entry = (&$crate::__Pick(layer)).__entry();
+                $crate::__assert_backward(layer, $args, |audit| audit $(.$key($value))+, entry)
+            }
+        }
     }};
 }
 

@@ -101,6 +101,7 @@ mod compare;
 mod diagnosis;
 pub mod env;
 mod error;
+mod fn_layer;
 mod format;
 /// Correct reference layers with hand-written backward passes, planted
 /// bugs in them, and random layers for stress tests (feature `gallery`).
@@ -121,6 +122,7 @@ mod tolerance;
 pub use audit::Audit;
 pub use diagnosis::Diagnosis;
 pub use error::Error;
+pub use fn_layer::FnLayer;
 #[cfg(feature = "proptest")]
 pub use harness::check_layer;
 #[doc(hidden)]
@@ -141,7 +143,7 @@ pub use tensor::Tensor;
 pub mod prelude {
     pub use crate::assert_backward;
     pub use crate::{
-        Args, Audit, Forward, GenericForward, Gradients, Layer, Real, Report, Scalar, Scheme,
-        Signature, Tensor,
+        Args, Audit, FnLayer, Forward, GenericForward, Gradients, Layer, Real, Report, Scalar,
+        Scheme, Signature, Tensor,
     };
 }
