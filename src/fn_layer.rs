@@ -15,11 +15,14 @@ use crate::tensor::Tensor;
 /// Use it for a one-off check, or to wrap a layer you did not write (a
 /// struct from another crate with its own `forward`/`backward`, weights
 /// and caches): the closures copy the audit's arguments in and the results
-/// out. [`Audit::run`](crate::Audit::run) and
-/// [`assert_backward!`](crate::assert_backward) take it like any layer; the
-/// macro spreads the audit over threads when both closures are `Sync`
-/// (a layer behind a `Mutex` is, one behind a `RefCell` is not and runs on
-/// one thread).
+/// out. [`Audit::run`](crate::Audit::run) takes it like any layer.
+/// [`assert_backward!`](crate::assert_backward) does too, and spreads the
+/// audit over threads, when both closures are `Sync`: capture a `Mutex`
+/// rather than a `RefCell`. (The macro picks threads or one thread by the
+/// layer's type, before the compiler has worked out what closures written
+/// beside the call capture, so non-`Sync` closures there do not compile;
+/// built in a function of its own and returned, such a layer runs on one
+/// thread.)
 ///
 /// * `forward(&args) -> Vec<Tensor<R>>`: one tensor per declared output.
 /// * `backward(&args, &upstream)`: the gradients, as [`Gradients`] or as a

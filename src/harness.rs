@@ -51,7 +51,9 @@ impl Report {
 /// Forms:
 ///
 /// * `assert_backward!(layer, &args)` (the layer by value or by reference:
-///   `assert_backward!(&layer, &args)` works the same)
+///   `assert_backward!(&layer, &args)` works the same; a layer built in the
+///   call, `assert_backward!(FnLayer::new(..), &args)`, lives until the
+///   audit is done)
 /// * `assert_backward!(layer, &args, key = value, ...)`: each `key = value`
 ///   calls the [`Audit`] setter of that name (`seed`, `scheme`, `margin`,
 ///   `max_absolute`, `max_relative`, `kinks_fail`, `max_elements`,

@@ -17,7 +17,9 @@
 //!   then gets exact complex-step references for free, even for `f32`
 //!   layers) or [`Forward`] (one precision only, audited with Ridders'
 //!   method). The three traits share no method name, so
-//!   `use plumbline::prelude::*` brings them all without ambiguity.
+//!   `use plumbline::prelude::*` brings them all without ambiguity. To
+//!   check a layer you did not write, [`FnLayer`] makes one from a
+//!   signature and two closures.
 //! * [`Audit`] is a builder of settings whose [`run`](Audit::run) checks a
 //!   layer at given [`Args`] and returns a [`Report`]. The audit computes;
 //!   it never prints.
