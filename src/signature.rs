@@ -552,6 +552,49 @@ mod tests {
     }
 
     #[test]
+    fn shape_declared_extents_are_labelled_after_named_dims() {
+        let sig = Signature::new()
+            .input("x", "batch, 3")
+            .param_shape("w", &[5, 3])
+            .param_shape("b", &[5])
+            .output_shape("y", &[2, 5]);
+        let args = Args::new(vec![t(&[2, 3])], vec![t(&[5, 3]), t(&[5])]);
+        let b = sig.bind("L", &args).unwrap();
+        // `batch` (2) comes first; 5 is labelled by its first declaration,
+        // 3 by `w` (the spec's exact 3 on `x` carries no label).
+        assert_eq!(
+            b.named_sizes(),
+            [
+                ("batch".to_string(), 2),
+                ("axis 0 of `w`".to_string(), 5),
+                ("axis 1 of `w`".to_string(), 3),
+            ]
+        );
+        let sig = Signature::new()
+            .input_shape("x", &[4])
+            .output_shape("y", &[4]);
+        let args = Args::new(vec![t(&[4])], vec![]);
+        let b = sig.bind("L", &args).unwrap();
+        assert_eq!(b.named_sizes(), [("length of `x`".to_string(), 4)]);
+    }
+
+    #[test]
+    fn a_shape_declared_fixed_input_takes_its_place_without_a_gradient() {
+        let sig = Signature::new()
+            .input_shape("x", &[3])
+            .fixed_input_shape("mask", &[3])
+            .output_shape("y", &[3]);
+        let roles: Vec<Role> = sig.arguments().map(|(_, r)| r).collect();
+        assert_eq!(roles, [Role::Input, Role::Fixed]);
+        let args = Args::new(vec![t(&[3]), t(&[2])], vec![]);
+        let msg = sig.bind("L", &args).unwrap_err().to_string();
+        assert_eq!(
+            msg,
+            "input `mask` has shape [2], but the signature wants [3]: axis 0 is 2, declared 3"
+        );
+    }
+
+    #[test]
     fn any_shape_and_scalar_specs() {
         let sig = Signature::new()
             .input("x", "*")

@@ -22,7 +22,7 @@ enum Bug {
 /// Frost score per station (demo layer): y[s] = tanh(Σ_r x[s, r]·w[r]),
 /// 4 stations × 3 readings, declared by concrete shapes, built from
 /// closures. Plain forward in `R`.
-fn station_score<R: Real>(bug: Bug) -> impl Layer<Real = R> + Forward + Sync + std::fmt::Debug {
+fn station_score<R: Real>(bug: Bug) -> impl Forward<Real = R> + Sync + std::fmt::Debug {
     let score = |a: &Args<R>| {
         let (x, w) = (a.input(0), a.param(0));
         Tensor::from_fn(vec![4], |s| {
