@@ -51,7 +51,9 @@ impl Report {
 /// Forms:
 ///
 /// * `assert_backward!(layer, &args)` (the layer by value or by reference:
-///   `assert_backward!(&layer, &args)` works the same)
+///   `assert_backward!(&layer, &args)` works the same; a layer built in the
+///   call, `assert_backward!(FnLayer::new(..), &args)`, lives until the
+///   audit is done)
 /// * `assert_backward!(layer, &args, key = value, ...)`: each `key = value`
 ///   calls the [`Audit`] setter of that name (`seed`, `scheme`, `margin`,
 ///   `max_absolute`, `max_relative`, `kinks_fail`, `max_elements`,
@@ -106,19 +108,27 @@ impl Report {
 /// ```
 #[macro_export]
 macro_rules! assert_backward {
+    // `match` keeps a layer built in the call (`FnLayer::new(..)`, a
+    // function's result) alive until the audit is done.
     ($layer:expr, $args:expr $(,)?) => {{
         #[allow(unused_imports)]
         use $crate::{__Audited as _, __OnOneThread as _, __OnThreads as _};
-        let layer = ($layer).__audited();
-        let entry = (&$crate::__Pick(layer)).__entry();
-        $crate::__assert_backward(layer, $args, |audit| audit, entry)
+        match ($layer).__audited() {
+            layer => {
+                let entry = (&$crate::__Pick(layer)).__entry();
+                $crate::__assert_backward(layer, $args, |audit| audit, entry)
+            }
+        }
     }};
     ($layer:expr, $args:expr, $($key:ident = $value:expr),+ $(,)?) => {{
         #[allow(unused_imports)]
         use $crate::{__Audited as _, __OnOneThread as _, __OnThreads as _};
-        let layer = ($layer).__audited();
-        let entry = (&$crate::__Pick(layer)).__entry();
-        $crate::__assert_backward(layer, $args, |audit| audit $(.$key($value))+, entry)
+        match ($layer).__audited() {
+            layer => {
+                let entry = (&$crate::__Pick(layer)).__entry();
+                $crate::__assert_backward(layer, $args, |audit| audit $(.$key($value))+, entry)
+            }
+        }
     }};
 }
 

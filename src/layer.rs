@@ -142,6 +142,14 @@ pub trait Forward: Layer {
     fn reference(&self) -> Option<&dyn sealed::Reference> {
         None
     }
+
+    /// The name a report shows when the audit sets none. Provided: `None`
+    /// (the type's name, without its path); a
+    /// [`FnLayer`](crate::FnLayer) returns its own. Not public API.
+    #[doc(hidden)]
+    fn shown_name(&self) -> Option<String> {
+        None
+    }
 }
 
 /// A forward pass written once for any [`Scalar`].

@@ -17,7 +17,9 @@
 //!   then gets exact complex-step references for free, even for `f32`
 //!   layers) or [`Forward`] (one precision only, audited with Ridders'
 //!   method). The three traits share no method name, so
-//!   `use plumbline::prelude::*` brings them all without ambiguity.
+//!   `use plumbline::prelude::*` brings them all without ambiguity. To
+//!   check a layer you did not write, [`FnLayer`] makes one from a
+//!   signature and two closures.
 //! * [`Audit`] is a builder of settings whose [`run`](Audit::run) checks a
 //!   layer at given [`Args`] and returns a [`Report`]. The audit computes;
 //!   it never prints.
@@ -101,6 +103,7 @@ mod compare;
 mod diagnosis;
 pub mod env;
 mod error;
+mod fn_layer;
 mod format;
 /// Correct reference layers with hand-written backward passes, planted
 /// bugs in them, and random layers for stress tests (feature `gallery`).
@@ -121,6 +124,7 @@ mod tolerance;
 pub use audit::Audit;
 pub use diagnosis::Diagnosis;
 pub use error::Error;
+pub use fn_layer::FnLayer;
 #[cfg(feature = "proptest")]
 pub use harness::check_layer;
 #[doc(hidden)]
@@ -141,7 +145,7 @@ pub use tensor::Tensor;
 pub mod prelude {
     pub use crate::assert_backward;
     pub use crate::{
-        Args, Audit, Forward, GenericForward, Gradients, Layer, Real, Report, Scalar, Scheme,
-        Signature, Tensor,
+        Args, Audit, FnLayer, Forward, GenericForward, Gradients, Layer, Real, Report, Scalar,
+        Scheme, Signature, Tensor,
     };
 }

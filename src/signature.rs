@@ -70,9 +70,22 @@ pub(crate) struct Slot {
     pub role: Role,
     /// The axes; `None` accepts any shape (spec `"*"`).
     pub dims: Option<Vec<Dim>>,
+    /// Declared by a concrete shape (`input_shape` and friends): its exact
+    /// extents are named by tensor and axis where a name is shown.
+    pub from_shape: bool,
 }
 
 impl Slot {
+    /// A slot declared by a concrete shape.
+    fn shaped(name: &str, role: Role, shape: &[usize]) -> Slot {
+        Slot {
+            name: name.to_string(),
+            role,
+            dims: Some(shape.iter().map(|&n| Dim::Exact(n)).collect()),
+            from_shape: true,
+        }
+    }
+
     /// The declared dims as text, e.g. `[batch, 3]` or `any shape`.
     pub(crate) fn dims_string(&self) -> String {
         match &self.dims {
@@ -124,6 +137,7 @@ impl Signature {
             name: name.to_string(),
             role,
             dims,
+            from_shape: false,
         }
     }
 
@@ -157,6 +171,80 @@ impl Signature {
     pub fn output(mut self, name: &str, dims: &str) -> Self {
         let s = self.slot(name, Role::Output, dims);
         self.outputs.push(s);
+        self
+    }
+
+    /// Declares a differentiable input by its concrete shape, for when its
+    /// dims need no names: a shape known only at run time
+    /// (`input_shape("x", x.shape())`), a wrapped layer's fixed sizes.
+    ///
+    /// The same as writing the extents in a spec (`&[4, 3]` is `"4, 3"`): a
+    /// mismatch is an [`Error::ArgumentShape`](crate::Error::ArgumentShape)
+    /// naming the tensor and the axis (``input `w` has shape [5], but the
+    /// signature wants [3]: axis 0 is 5, declared 3``). Beyond that, a
+    /// diagnosis whose factor is one of these extents names it by tensor and
+    /// axis, as it names a named dim: ``1/N (N = axis 0 of `x` = 4)``, or
+    /// ``length of `w` `` for a rank-1 tensor. A named dim of the same size
+    /// elsewhere in the signature takes precedence.
+    ///
+    /// ```
+    /// use plumbline::prelude::*;
+    /// use plumbline::Error;
+    ///
+    /// // Frost score per station: y = x·w, shapes taken from the data.
+    /// let readings = Tensor::full(vec![4, 3], 0.5_f64);
+    /// let layer = FnLayer::new(
+    ///     Signature::new()
+    ///         .input_shape("x", readings.shape())
+    ///         .param_shape("w", &[3])
+    ///         .output_shape("y", &[4]),
+    ///     |a: &Args<f64>| {
+    ///         let (x, w) = (a.input(0), a.param(0));
+    ///         vec![Tensor::from_fn(vec![4], |i| (0..3).map(|j| x[[i[0], j]] * w[[j]]).sum())]
+    ///     },
+    ///     |a, up| {
+    ///         let (x, w, g) = (a.input(0), a.param(0), &up[0]);
+    ///         let dx = Tensor::from_fn(vec![4, 3], |ix| g[[ix[0]]] * w[[ix[1]]]);
+    ///         let dw = Tensor::from_fn(vec![3], |j| (0..4).map(|i| g[[i]] * x[[i, j[0]]]).sum());
+    ///         vec![dx, dw]
+    ///     },
+    /// );
+    /// let w = Tensor::new(vec![3], vec![0.2, -0.5, 1.0])?;
+    /// Audit::new().run(&layer, &Args::new(vec![readings.clone()], vec![w]))?.assert_passed();
+    ///
+    /// let wrong = Args::new(vec![readings], vec![Tensor::full(vec![5], 0.1)]);
+    /// let err = Audit::new().run(&layer, &wrong).unwrap_err();
+    /// assert!(matches!(err, Error::ArgumentShape { ref tensor, .. } if tensor == "w"));
+    /// assert!(err.to_string().ends_with("axis 0 is 5, declared 3"), "{err}");
+    /// # Ok::<(), plumbline::Error>(())
+    /// ```
+    #[must_use]
+    pub fn input_shape(mut self, name: &str, shape: &[usize]) -> Self {
+        self.inputs.push(Slot::shaped(name, Role::Input, shape));
+        self
+    }
+
+    /// Declares an input that is not differentiated by its concrete shape
+    /// (see [`input_shape`](Signature::input_shape)).
+    #[must_use]
+    pub fn fixed_input_shape(mut self, name: &str, shape: &[usize]) -> Self {
+        self.inputs.push(Slot::shaped(name, Role::Fixed, shape));
+        self
+    }
+
+    /// Declares a parameter by its concrete shape (see
+    /// [`input_shape`](Signature::input_shape)).
+    #[must_use]
+    pub fn param_shape(mut self, name: &str, shape: &[usize]) -> Self {
+        self.params.push(Slot::shaped(name, Role::Parameter, shape));
+        self
+    }
+
+    /// Declares an output by its concrete shape (see
+    /// [`input_shape`](Signature::input_shape)).
+    #[must_use]
+    pub fn output_shape(mut self, name: &str, shape: &[usize]) -> Self {
+        self.outputs.push(Slot::shaped(name, Role::Output, shape));
         self
     }
 
@@ -331,6 +419,9 @@ fn parse_dims(spec: &str) -> Result<Option<Vec<Dim>>, String> {
 #[derive(Clone, Debug, Default)]
 pub(crate) struct Bindings {
     sizes: BTreeMap<String, (usize, String)>,
+    /// The extents of tensors declared by concrete shape, each named by
+    /// tensor and axis (`axis 1 of `w``), in declaration order.
+    shaped: Vec<(String, usize)>,
 }
 
 impl Bindings {
@@ -350,6 +441,14 @@ impl Bindings {
                 Dim::Exact(m) if *m != n => {
                     return Err(format!("axis {axis} is {n}, declared {m}"));
                 }
+                Dim::Exact(_) if slot.from_shape => {
+                    let label = if dims.len() == 1 {
+                        format!("length of `{}`", slot.name)
+                    } else {
+                        format!("axis {axis} of `{}`", slot.name)
+                    };
+                    self.shaped.push((label, n));
+                }
                 Dim::Exact(_) => {}
                 Dim::Named(name) => match self.sizes.get(name) {
                     Some((m, by)) if *m != n => {
@@ -367,12 +466,19 @@ impl Bindings {
         Ok(())
     }
 
-    /// Every named dim with its size, in name order.
+    /// Every named dim with its size, in name order, then the extents of
+    /// tensors declared by concrete shape that no earlier entry has, named
+    /// by tensor and axis.
     pub(crate) fn named_sizes(&self) -> Vec<(String, usize)> {
-        self.sizes
-            .iter()
+        let mut out: Vec<(String, usize)> = (self.sizes.iter())
             .map(|(k, (n, _))| (k.clone(), *n))
-            .collect()
+            .collect();
+        for (label, n) in &self.shaped {
+            if !out.iter().any(|(_, m)| m == n) {
+                out.push((label.clone(), *n));
+            }
+        }
+        out
     }
 
     /// The size bound to a named dim, if any.
@@ -443,6 +549,49 @@ mod tests {
             sig.bind("L", &args),
             Err(Error::EmptyLayer { .. })
         ));
+    }
+
+    #[test]
+    fn shape_declared_extents_are_labelled_after_named_dims() {
+        let sig = Signature::new()
+            .input("x", "batch, 3")
+            .param_shape("w", &[5, 3])
+            .param_shape("b", &[5])
+            .output_shape("y", &[2, 5]);
+        let args = Args::new(vec![t(&[2, 3])], vec![t(&[5, 3]), t(&[5])]);
+        let b = sig.bind("L", &args).unwrap();
+        // `batch` (2) comes first; 5 is labelled by its first declaration,
+        // 3 by `w` (the spec's exact 3 on `x` carries no label).
+        assert_eq!(
+            b.named_sizes(),
+            [
+                ("batch".to_string(), 2),
+                ("axis 0 of `w`".to_string(), 5),
+                ("axis 1 of `w`".to_string(), 3),
+            ]
+        );
+        let sig = Signature::new()
+            .input_shape("x", &[4])
+            .output_shape("y", &[4]);
+        let args = Args::new(vec![t(&[4])], vec![]);
+        let b = sig.bind("L", &args).unwrap();
+        assert_eq!(b.named_sizes(), [("length of `x`".to_string(), 4)]);
+    }
+
+    #[test]
+    fn a_shape_declared_fixed_input_takes_its_place_without_a_gradient() {
+        let sig = Signature::new()
+            .input_shape("x", &[3])
+            .fixed_input_shape("mask", &[3])
+            .output_shape("y", &[3]);
+        let roles: Vec<Role> = sig.arguments().map(|(_, r)| r).collect();
+        assert_eq!(roles, [Role::Input, Role::Fixed]);
+        let args = Args::new(vec![t(&[3]), t(&[2])], vec![]);
+        let msg = sig.bind("L", &args).unwrap_err().to_string();
+        assert_eq!(
+            msg,
+            "input `mask` has shape [2], but the signature wants [3]: axis 0 is 2, declared 3"
+        );
     }
 
     #[test]

@@ -4,6 +4,7 @@
 
 mod common;
 
+use approx::assert_abs_diff_eq;
 use common::{dense_args, Dense, DenseBug};
 use plumbline::{Args, Audit, Diagnosis, Error, Scheme, Tensor, Verdict};
 
@@ -52,7 +53,7 @@ fn factor_two_is_named() {
     assert_eq!(r.rows[0].name, "b", "{r}");
     match &r.rows[0].diagnosis {
         Some(Diagnosis::Scaled { factor, culprit }) => {
-            assert!((factor - 2.0).abs() < 1e-9);
+            assert_abs_diff_eq!(*factor, 2.0, epsilon = 1e-9);
             assert_eq!(culprit.as_deref(), Some("2"));
         }
         other => panic!("{other:?}\n{r}"),

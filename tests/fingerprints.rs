@@ -7,6 +7,7 @@
 //! Its backward is right, then one gradient is passed through a planted
 //! mangling of the kind the fingerprint describes.
 
+use approx::{assert_abs_diff_eq, assert_relative_eq, relative_eq};
 use plumbline::prelude::*;
 use plumbline::{Diagnosis, Row};
 
@@ -446,13 +447,13 @@ fn a_gradient_squared_is_wrong_everywhere_with_the_numbers_that_help() {
         let cov: f64 = a.iter().zip(&n).map(|(p, q)| (p - ma) * (q - mn)).sum();
         let va: f64 = a.iter().map(|p| (p - ma).powi(2)).sum();
         let vn: f64 = n.iter().map(|q| (q - mn).powi(2)).sum();
-        assert!((correlation - cov / (va * vn).sqrt()).abs() < 1e-12);
+        assert_abs_diff_eq!(correlation, cov / (va * vn).sqrt(), epsilon = 1e-12);
         let k = a.iter().zip(&n).map(|(p, q)| p * q).sum::<f64>()
             / n.iter().map(|q| q * q).sum::<f64>();
-        assert!((factor - k).abs() < 1e-12 * k.abs().max(1.0));
+        assert_relative_eq!(factor, k, epsilon = 1e-12, max_relative = 1e-12);
         let rest: f64 = a.iter().zip(&n).map(|(p, q)| (p - k * q).powi(2)).sum();
         let share = rest / a.iter().map(|p| p * p).sum::<f64>();
-        assert!((unexplained - share).abs() < 1e-12);
+        assert_abs_diff_eq!(unexplained, share, epsilon = 1e-12);
         let text = row.diagnosis.unwrap().to_string();
         assert!(text.starts_with("wrong everywhere (24 of 24): no sign, factor, axis order or slice pattern fits; correlation "), "{text}");
         assert!(text.contains("% unexplained"), "{text}");
@@ -611,7 +612,7 @@ fn a_wrong_scalar_reads_as_a_wrong_value_with_its_ratio_not_as_a_pattern() {
     let shown: f64 = number.parse().unwrap();
     let ratio = e.analytic / e.numeric;
     assert!(
-        (shown - ratio).abs() <= 0.01 * ratio.abs(),
+        relative_eq!(shown, ratio, max_relative = 0.01),
         "{text} vs {ratio}"
     );
 }

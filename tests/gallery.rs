@@ -8,6 +8,8 @@
 
 use std::collections::HashSet;
 
+use approx::assert_abs_diff_eq;
+
 use plumbline::gallery::{
     judge, registry, Case, LayerNorm, MaxPool2d, MaxPoolBug, SoftmaxCrossEntropy,
 };
@@ -288,16 +290,18 @@ fn softmax_cross_entropy_gradient_matches_published_values() {
     let labels = Tensor::new(vec![1], vec![0.0]).unwrap();
     let args = Args::new(vec![z, labels], vec![]);
     let loss = layer.forward(&args)[0].data()[0];
-    assert!((loss - 2.407_605_964_444_380_3).abs() < 1e-14, "{loss}");
+    assert_abs_diff_eq!(loss, 2.407_605_964_444_380_3, epsilon = 1e-14);
     let g = layer.backward(&args, &[Tensor::scalar(1.0)]);
-    let want = [
-        -0.909_969_426_829_619_5,
-        0.244_728_471_054_797_65,
-        0.665_240_955_774_821_9,
-    ];
-    for (a, w) in g.get(0).unwrap().data().iter().zip(want) {
-        assert!((a - w).abs() < 1e-15, "{a} vs {w}");
-    }
+    let want = Tensor::new(
+        vec![1, 3],
+        vec![
+            -0.909_969_426_829_619_5,
+            0.244_728_471_054_797_65,
+            0.665_240_955_774_821_9,
+        ],
+    )
+    .unwrap();
+    assert_abs_diff_eq!(g.get(0).unwrap(), &want, epsilon = 1e-15);
 }
 
 #[test]
@@ -314,22 +318,26 @@ fn layer_norm_gradient_matches_published_values() {
         vec![Tensor::full(vec![3], 1.0), Tensor::full(vec![3], 0.0)],
     );
     let y = layer.forward(&args);
-    let want_y = [
-        -1.069_041_531_450_297_5,
-        -0.267_260_382_862_574_37,
-        1.336_301_914_312_871_8,
-    ];
-    for (a, w) in y[0].data().iter().zip(want_y) {
-        assert!((a - w).abs() < 1e-14, "{a} vs {w}");
-    }
+    let want_y = Tensor::new(
+        vec![1, 3],
+        vec![
+            -1.069_041_531_450_297_5,
+            -0.267_260_382_862_574_37,
+            1.336_301_914_312_871_8,
+        ],
+    )
+    .unwrap();
+    assert_abs_diff_eq!(y[0], want_y, epsilon = 1e-14);
     let g = Tensor::new(vec![1, 3], vec![0.3, -0.1, 0.5]).unwrap();
     let grads = layer.backward(&args, &[g]);
-    let want = [
-        0.160_355_542_480_978_07,
-        -0.240_534_516_385_458_57,
-        0.080_178_973_904_480_5,
-    ];
-    for (a, w) in grads.get(0).unwrap().data().iter().zip(want) {
-        assert!((a - w).abs() < 1e-14, "{a} vs {w}");
-    }
+    let want = Tensor::new(
+        vec![1, 3],
+        vec![
+            0.160_355_542_480_978_07,
+            -0.240_534_516_385_458_57,
+            0.080_178_973_904_480_5,
+        ],
+    )
+    .unwrap();
+    assert_abs_diff_eq!(grads.get(0).unwrap(), &want, epsilon = 1e-14);
 }

@@ -5,6 +5,7 @@
 
 mod hive;
 
+use approx::assert_abs_diff_eq;
 use hive::{hive_args, HiveBug, HiveScore, CORRECT};
 use plumbline::env::{Environment, PrintFormat};
 use plumbline::render::{terminal_width, write_table, ColorChoice, Style};
@@ -255,7 +256,7 @@ fn a_tighter_factor_changes_the_outcome() {
     let env = Environment::from_lookup(lookup(&[("PLUMBLINE_MARGIN_FACTOR", "1e-12")])).unwrap();
     let r = run_with(&env, |a| a.max_absolute(1e-9));
     let (abs, _) = r.fixed_bounds().unwrap();
-    assert!((abs.unwrap() - 1e-21).abs() < 1e-35, "{abs:?}");
+    assert_abs_diff_eq!(abs.unwrap(), 1e-21, epsilon = 1e-35);
     let loose = Audit::new()
         .max_absolute(1e-9)
         .run(&CORRECT, &hive_args(2, 2))

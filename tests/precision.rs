@@ -10,6 +10,7 @@ mod common;
 
 use std::marker::PhantomData;
 
+use approx::abs_diff_eq;
 use plumbline::{Args, Audit, GenericForward, Gradients, Layer, Real, Scalar, Signature, Tensor};
 
 const EPS: f64 = 1e-5;
@@ -236,7 +237,7 @@ fn softmax_vjp_matches_the_closed_form_oracle() {
     for k in 0..3 {
         // Component 0 cancels (terms ~0.03): judge against the terms' size.
         assert!(
-            (cs[k] - want[k]).abs() < 8.0 * f64::EPSILON * 0.3,
+            abs_diff_eq!(cs[k], want[k], epsilon = 8.0 * f64::EPSILON * 0.3),
             "dz[{k}] {} vs {}",
             cs[k],
             want[k]

@@ -10,6 +10,7 @@
 // Check values keep the digits of their source.
 #![allow(clippy::excessive_precision, clippy::approx_constant)]
 
+use approx::{abs_diff_eq, assert_abs_diff_eq};
 use plumbline::scheme::{central_difference, one_sided_derivatives, ridders_derivative};
 use plumbline::Scalar;
 
@@ -79,7 +80,10 @@ fn ridders_on_the_published_test_function() {
         let d = ridders_derivative(test_fn, 1.5, h0);
         let r = rel(d.value, TEST_FN_DERIV);
         assert!(r <= RIDDERS_CAP, "h0 {h0}: rel {r}");
-        assert!((d.value - TEST_FN_DERIV).abs() <= d.error, "h0 {h0}: {d:?}");
+        assert!(
+            abs_diff_eq!(d.value, TEST_FN_DERIV, epsilon = d.error),
+            "h0 {h0}: {d:?}"
+        );
         // 4 evaluations for the small-step check, at most 8 for finer
         // checks, at most 20 for the extrapolation.
         assert!(d.evals <= 32, "{d:?}");
@@ -179,9 +183,12 @@ fn handbook_derivatives_through_central_and_ridders() {
 fn kink_test_separates_kinks_from_smooth_points() {
     // Kinks: |x| at 0, ReLU at 0, max(x, 0.3) at 0.3 (one-sided slopes −1/1, 0/1, 0/1).
     let k = one_sided_derivatives(f64::abs, 0.0, 1e-3).unwrap();
-    assert!((k.left + 1.0).abs() < 1e-9 && (k.right - 1.0).abs() < 1e-9);
+    assert_abs_diff_eq!(k.left, -1.0, epsilon = 1e-9);
+    assert_abs_diff_eq!(k.right, 1.0, epsilon = 1e-9);
     let k = one_sided_derivatives(|x: f64| x.max(0.0), 0.0, 1e-3).unwrap();
-    assert!(k.left.abs() < 1e-9 && (k.right - 1.0).abs() < 1e-9 && k.at_point);
+    assert_abs_diff_eq!(k.left, 0.0, epsilon = 1e-9);
+    assert_abs_diff_eq!(k.right, 1.0, epsilon = 1e-9);
+    assert!(k.at_point);
     assert!(one_sided_derivatives(|x: f64| x.max(0.3), 0.3, 1e-3).is_some());
     // Smooth: tanh at 0.5 and 0, exp at 3, x² at 0, sin(50x) at 0.1, x|x| at 0.
     for (f, x) in [
@@ -219,13 +226,16 @@ fn kink_test_reports_slopes_noise_and_where_the_kink_lies() {
     let k = one_sided_derivatives(frost, 0.29, 0.02).unwrap();
     assert!(!k.at_point, "{k:?}");
     assert!(
-        (k.left + 1.0).abs() < 1e-9 && (k.right + 1.0).abs() < 1e-9,
+        abs_diff_eq!(k.left, -1.0, epsilon = 1e-9) && abs_diff_eq!(k.right, -1.0, epsilon = 1e-9),
         "{k:?}"
     );
     // At the kink itself: −1 from the left, 0 from the right.
     let k = one_sided_derivatives(frost, 0.3, 0.02).unwrap();
     assert!(k.at_point, "{k:?}");
-    assert!((k.left + 1.0).abs() < 1e-9 && k.right.abs() < 1e-9, "{k:?}");
+    assert!(
+        abs_diff_eq!(k.left, -1.0, epsilon = 1e-9) && abs_diff_eq!(k.right, 0.0, epsilon = 1e-9),
+        "{k:?}"
+    );
 }
 
 #[test]
@@ -238,7 +248,7 @@ fn a_kink_under_strong_curvature_is_still_found() {
     let k = one_sided_derivatives(f, 0.0, 1e-3).unwrap();
     assert!(k.at_point, "{k:?}");
     assert!(
-        (k.left + 1e-4).abs() < 1e-9 && (k.right - 1e-4).abs() < 1e-9,
+        abs_diff_eq!(k.left, -1e-4, epsilon = 1e-9) && abs_diff_eq!(k.right, 1e-4, epsilon = 1e-9),
         "{k:?}"
     );
     // The same curvature without the kink: smooth.

@@ -4,6 +4,7 @@
 //! The layer is an orchard-wide frost model: readings of `station`s pass a
 //! dense tanh layer with a weight per (zone, station) pair.
 
+use approx::abs_diff_eq;
 use plumbline::audit::{Coverage, SCREEN_DIRECTIONS};
 use plumbline::prelude::*;
 use plumbline::Diagnosis;
@@ -50,7 +51,7 @@ fn planted_bugs_fail_the_screen_and_are_located_and_named() {
         let r = screened(Bug::Factor, seed);
         let w = r.row("w").unwrap();
         assert!(
-            matches!(w.diagnosis, Some(Diagnosis::Scaled { factor, .. }) if (factor - 2.0).abs() < 1e-9),
+            matches!(w.diagnosis, Some(Diagnosis::Scaled { factor, .. }) if abs_diff_eq!(factor, 2.0, epsilon = 1e-9)),
             "{r}"
         );
 

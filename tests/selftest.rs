@@ -13,6 +13,7 @@ use std::cell::RefCell;
 use std::marker::PhantomData;
 use std::ops::{Add, Mul};
 
+use approx::assert_abs_diff_eq;
 use num_traits::Float;
 use plumbline::{
     Args, Audit, GenericForward, Gradients, Layer, Real, Scalar, Scheme, Signature, Tensor,
@@ -705,12 +706,12 @@ fn dual_numbers_match_handbook_derivatives() {
     // computed with mpmath at 40 digits); d/dx sin x = cos x at 1: cos 1 = 0.5403023058681398 (common
     // practice).
     let t = Dual { v: 0.5, d: 1.0 }.tanh_op(false);
-    assert!((t.d - 0.786_447_732_965_927_4_f64).abs() < 1e-15);
+    assert_abs_diff_eq!(t.d, 0.786_447_732_965_927_4_f64, epsilon = 1e-15);
     let s = Dual { v: 1.0, d: 1.0 }.sin_op(false);
-    assert!((s.d - 0.540_302_305_868_139_8_f64).abs() < 1e-15);
+    assert_abs_diff_eq!(s.d, 0.540_302_305_868_139_8_f64, epsilon = 1e-15);
     let e = Dual { v: 0.0, d: 1.0 }.exp_op(false);
     assert_eq!(e.d, 1.0_f64);
     // The same rules in f32 agree to f32 precision.
     let t = Dual { v: 0.5_f32, d: 1.0 }.tanh_op(false);
-    assert!((t.d - 0.786_447_73_f32).abs() <= 2.0 * f32::EPSILON);
+    assert_abs_diff_eq!(t.d, 0.786_447_73_f32, epsilon = 2.0 * f32::EPSILON);
 }

@@ -31,6 +31,7 @@
 
 use std::cell::Cell;
 
+use approx::assert_abs_diff_eq;
 use plumbline::prelude::*;
 
 const Z: [f64; 3] = [1.0, 2.0, 3.0];
@@ -263,9 +264,10 @@ fn cross_entropy_numeric_gradient_matches_the_published_vector() {
     // The loss value itself (mpmath 1.3, 40 digits): a few ulps.
     let loss = Loss::new(Kind::CrossEntropy).forward_generic(&args(Kind::CrossEntropy));
     let l = loss[0].data()[0];
-    assert!(
-        (l - CROSS_ENTROPY_LOSS).abs() <= 4.0 * f64::EPSILON * CROSS_ENTROPY_LOSS,
-        "{l}"
+    assert_abs_diff_eq!(
+        l,
+        CROSS_ENTROPY_LOSS,
+        epsilon = 4.0 * f64::EPSILON * CROSS_ENTROPY_LOSS
     );
 }
 

@@ -274,6 +274,53 @@ impl Audit {
     /// through its plain path: its own forward, in its own precision, with
     /// real differences, as if it had only a [`Forward`](crate::Forward).
     /// (Default `false`: complex-step references in `f64`.)
+    ///
+    /// One type thus serves both audits: the exact references of the
+    /// generic path, and the forward as it runs in production, `f32`
+    /// rounding included. In a test: `assert_backward!(layer, &args,
+    /// own_precision = true)`.
+    ///
+    /// ```
+    /// use plumbline::prelude::*;
+    ///
+    /// /// Frost score per station in f32: y = tanh(w·x), one shared w.
+    /// struct Score;
+    ///
+    /// impl Layer for Score {
+    ///     type Real = f32;
+    ///     fn signature(&self) -> Signature {
+    ///         Signature::new().input("x", "station").param("w", "").output("y", "station")
+    ///     }
+    ///     fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
+    ///         let (x, w) = (a.input(0), a.param(0)[[]]);
+    ///         let d = Tensor::from_fn(x.shape().to_vec(), |i| {
+    ///             let y = (w * x[i]).tanh();
+    ///             up[0][i] * (1.0 - y * y)
+    ///         });
+    ///         let dw = (0..x.len()).map(|i| d[[i]] * x[[i]]).sum();
+    ///         Gradients::from(vec![d.map(|d| d * w), Tensor::scalar(dw)])
+    ///     }
+    /// }
+    ///
+    /// impl GenericForward for Score {
+    ///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+    ///         let w = a.param(0)[[]];
+    ///         vec![a.input(0).map(|x| (w * x).tanh())]
+    ///     }
+    /// }
+    ///
+    /// let x = Tensor::new(vec![3], vec![0.4_f32, -1.2, 2.5])?;
+    /// let args = Args::new(vec![x], vec![Tensor::scalar(0.6)]);
+    /// let exact = Audit::new().run(&Score, &args)?;
+    /// assert_eq!(exact.reference_precision(), "f64"); // complex step in f64
+    /// let plain = Audit::new().own_precision(true).run(&Score, &args)?;
+    /// assert_eq!(plain.rows[0].scheme, Scheme::Ridders);
+    /// assert_eq!(plain.reference_precision(), "f32");
+    /// plain.assert_passed();
+    /// let same = assert_backward!(Score, &args, own_precision = true);
+    /// assert_eq!(*same, plain);
+    /// # Ok::<(), plumbline::Error>(())
+    /// ```
     #[must_use]
     pub fn own_precision(mut self, yes: bool) -> Self {
         self.own_precision = yes;

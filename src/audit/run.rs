@@ -111,7 +111,9 @@ impl Audit {
         workers: Option<&dyn Workers<L::Real>>,
     ) -> Result<Report, Error> {
         self.validate()?;
-        let name = self.name.clone().unwrap_or_else(short_type_name::<L>);
+        let name = (self.name.clone())
+            .or_else(|| layer.shown_name())
+            .unwrap_or_else(short_type_name::<L>);
         let sig = call(&name, "signature", || layer.signature())?;
         let bindings = sig.bind(&name, args)?;
         let generic = layer.reference().is_some() && !self.own_precision;
