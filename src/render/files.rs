@@ -83,7 +83,7 @@ pub(crate) fn stem(report: &Report, unique: bool) -> String {
 /// With the feature `pictures` (on by default), every row with a
 /// [`StepSweep`](crate::report::StepSweep) (failing rows, by default) also
 /// gets its error-against-step picture as `<test>--<layer>--<tensor>.svg`
-/// ([`step_picture`](super::step_picture)), and the Markdown summary links
+/// (`render::step_picture`), and the Markdown summary links
 /// each picture by its file name.
 /// Returns the paths written; an I/O failure is an error naming the path.
 ///

@@ -6,6 +6,7 @@ use plotters::prelude::*;
 
 use crate::format::{err, num};
 use crate::report::{Row, StepSweep};
+use crate::scheme::Scheme;
 
 /// Width and height of the picture, in pixels.
 const PICTURE_SIZE: (u32, u32) = (760, 500);
@@ -176,13 +177,14 @@ fn draw(
 ) -> Drawn {
     let root = SVGBackend::with_string(svg, PICTURE_SIZE).into_drawing_area();
     root.fill(&WHITE)?;
+    let (upper, lower) = root.split_vertically(PICTURE_SIZE.1 - LEGEND_HEIGHT);
     let title = format!(
         "`{}` {} (x = {}): central differences against step",
         row.name,
         sweep.index,
         num(sweep.x)
     );
-    let mut chart = ChartBuilder::on(&root)
+    let mut chart = ChartBuilder::on(&upper)
         .caption(title, ("sans-serif", 17))
         .margin(14)
         .x_label_area_size(46)
@@ -191,7 +193,7 @@ fn draw(
     chart
         .configure_mesh()
         .x_desc("step h (half-width of the central difference)")
-        .y_desc("distance")
+        .y_desc("distance |D(h) − value|")
         .x_label_formatter(&decade)
         .y_label_formatter(&decade)
         .light_line_style(TRANSPARENT)
@@ -201,58 +203,88 @@ fn draw(
         [(x0, y0), (x1, y1)],
         FRAME_COLOR.stroke_width(1),
     )))?;
-
-    let series = [
-        (
-            &curves.analytic,
-            ANALYTIC_COLOR,
-            "|D(h) − backward's value|".to_string(),
-        ),
-        (
-            &curves.reference,
-            REFERENCE_COLOR,
-            format!("|D(h) − {} reference|", row.scheme),
-        ),
-    ];
-    for (runs, color, label) in series {
-        for (k, run) in runs.iter().enumerate() {
-            let drawn =
-                chart.draw_series(LineSeries::new(run.iter().copied(), color.stroke_width(2)))?;
-            if k == 0 {
-                drawn.label(label.clone()).legend(move |(x, y)| {
-                    PathElement::new([(x, y), (x + 20, y)], color.stroke_width(2))
-                });
-            }
+    for (runs, color) in [
+        (&curves.analytic, ANALYTIC_COLOR),
+        (&curves.reference, REFERENCE_COLOR),
+    ] {
+        for run in runs {
+            chart.draw_series(LineSeries::new(run.iter().copied(), color.stroke_width(2)))?;
             chart.draw_series(run.iter().map(|&p| Circle::new(p, 3, color.filled())))?;
         }
     }
     if let Some(b) = curves.bound {
-        chart
-            .draw_series(DashedLineSeries::new(
-                [(x0, b), (x1, b)],
-                8,
-                5,
-                BOUND_COLOR.stroke_width(2),
-            ))?
-            .label(format!("bound {}", err(10f64.powf(b))))
-            .legend(|(x, y)| PathElement::new([(x, y), (x + 20, y)], BOUND_COLOR.stroke_width(2)));
+        chart.draw_series(DashedLineSeries::new(
+            [(x0, b), (x1, b)],
+            8,
+            5,
+            BOUND_COLOR.stroke_width(2),
+        ))?;
     }
     if let Some(p) = curves.chosen {
-        chart
-            .draw_series(std::iter::once(TriangleMarker::new(p, 7, BLACK.filled())))?
-            .label(format!(
-                "the audit: |backward − reference| = {}",
-                err(10f64.powf(p.1))
-            ))
-            .legend(|(x, y)| TriangleMarker::new((x + 10, y), 6, BLACK.filled()));
+        chart.draw_series(std::iter::once(TriangleMarker::new(p, 7, BLACK.filled())))?;
     }
-    chart
-        .configure_series_labels()
-        .position(SeriesLabelPosition::LowerLeft)
-        .background_style(WHITE.mix(0.85))
-        .border_style(TRANSPARENT)
-        .label_font(("sans-serif", 13))
-        .draw()?;
-    root.present()?;
+    legend(&lower, row, sweep)
+}
+
+/// Height of the legend strip below the chart, in pixels.
+const LEGEND_HEIGHT: u32 = 52;
+
+/// The legend, in two columns below the chart (inside the chart it would
+/// cover the V somewhere, whatever corner it took).
+fn legend(
+    area: &DrawingArea<SVGBackend<'_>, plotters::coord::Shift>,
+    row: &Row,
+    sweep: &StepSweep,
+) -> Drawn {
+    let font = ("sans-serif", 13).into_font().color(&BLACK);
+    let gap = (sweep.analytic - sweep.reference).abs();
+    let entries = [
+        "|D(h) − backward's value|".to_string(),
+        format!("|D(h) − {} reference|", row.scheme),
+        format!("bound {}", err(sweep.bound)),
+        format!(
+            "the audit: |backward − reference| = {} ({} at {}step {})",
+            err(gap),
+            row.scheme,
+            if row.scheme == Scheme::ComplexStep {
+                "imaginary "
+            } else {
+                ""
+            },
+            err(sweep.chosen_step)
+        ),
+    ];
+    for (k, text) in entries.iter().enumerate() {
+        let x = if k % 2 == 0 { 84 } else { 330 };
+        let y = 10 + 22 * (k / 2) as i32;
+        let (sample, label) = ((x, y + 7), (x + 30, y));
+        match k {
+            0 | 1 => {
+                let color = if k == 0 {
+                    ANALYTIC_COLOR
+                } else {
+                    REFERENCE_COLOR
+                };
+                area.draw(&PathElement::new(
+                    [sample, (sample.0 + 22, sample.1)],
+                    color.stroke_width(2),
+                ))?;
+            }
+            2 => {
+                for d in [0, 14] {
+                    area.draw(&PathElement::new(
+                        [(sample.0 + d, sample.1), (sample.0 + d + 8, sample.1)],
+                        BOUND_COLOR.stroke_width(2),
+                    ))?;
+                }
+            }
+            _ => area.draw(&TriangleMarker::new(
+                (sample.0 + 11, sample.1),
+                6,
+                BLACK.filled(),
+            ))?,
+        }
+        area.draw(&Text::new(text.as_str(), label, font.clone()))?;
+    }
     Ok(())
 }
