@@ -1,6 +1,7 @@
 //! The CI gate: audit every hand-written layer of a beehive health model
 //! with settings from `PLUMBLINE_*` variables, keep a JSON report and a
-//! Markdown summary per layer, and exit non-zero if any backward disagrees.
+//! Markdown summary per layer (and an error-against-step picture per
+//! failing tensor), and exit non-zero if any backward disagrees.
 //!
 //! The model scores each hive's health from its sensors: the hive scale's
 //! weight change over the day (kg), brood-nest temperature (°C), humidity,

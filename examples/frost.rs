@@ -8,8 +8,18 @@
 //! planted bug; the audit names it.
 //!
 //! Run: `cargo run --example frost`
+//!
+//! With `PLUMBLINE_REPORT_DIR` set (and the other `PLUMBLINE_*` variables,
+//! as in the CI gate) it also writes a JSON report and a Markdown summary
+//! per layer there, and an error-against-step picture (SVG) for the
+//! failing row:
+//!
+//! ```sh
+//! PLUMBLINE_REPORT_DIR=target/frost cargo run --example frost
+//! ```
 
-use plumbline::{Args, Audit, GenericForward, Gradients, Layer, Scalar, Signature, Tensor};
+use plumbline::env::Environment;
+use plumbline::{Args, GenericForward, Gradients, Layer, Scalar, Signature, Tensor};
 
 /// Per-feature standardisation: y = (x − centre) ⊙ inv_scale.
 struct Standardize;
@@ -194,7 +204,9 @@ fn main() -> Result<(), plumbline::Error> {
         vec![t(&[3], &[0.8, -0.5, 0.3]), Tensor::scalar(-0.1)],
     );
 
-    let audit = Audit::new().seed(2026);
+    // Unset `PLUMBLINE_*` variables change nothing here.
+    let env = Environment::from_env()?;
+    let audit = env.audit(|a| a.seed(2026))?;
     let mut reports = vec![
         audit.run(&Standardize, &std_args)?,
         audit.run(&Hidden, &hid_args)?,
@@ -204,6 +216,13 @@ fn main() -> Result<(), plumbline::Error> {
     reports.sort_by_key(|r| r.passed());
     for r in &reports {
         println!("{r}");
+    }
+    if let Some(dir) = &env.report_dir {
+        for r in &reports {
+            for path in plumbline::render::write_report(dir, r)? {
+                println!("wrote {}", path.display());
+            }
+        }
     }
     let failing = reports.iter().filter(|r| !r.passed()).count();
     println!(

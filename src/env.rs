@@ -20,7 +20,8 @@
 //! | `PLUMBLINE_MAX_EVALUATIONS` | positive integer | `1000000` | code wins |
 //! | `PLUMBLINE_COVERAGE` | `auto`, `elements`, `screen` | `auto` | code wins |
 //! | `PLUMBLINE_THREADS` | positive integer | every core | code wins (`assert_backward!` uses them for `Sync` layers) |
-//! | `PLUMBLINE_REPORT_DIR` | a directory (created if missing; not a file) | none | writes `<test>--<layer>.json` and `.md` per audit |
+//! | `PLUMBLINE_REPORT_DIR` | a directory (created if missing; not a file) | none | writes `<test>--<layer>.json` and `.md` per audit, and `<test>--<layer>--<tensor>.svg` per row with a step sweep (feature `pictures`) |
+//! | `PLUMBLINE_STEP_SWEEPS` | `failing`, `all`, `off` | `failing` | which rows get an error-against-step sweep ([`StepSweeps`]); code wins |
 //! | `PLUMBLINE_FORMAT` | `none`, `table`, `markdown`, `json` | `none` | what each audit prints to stdout |
 //! | `PLUMBLINE_COLOR` | `auto`, `always`, `never` | `auto` | `auto`: colour only on a terminal, not with `NO_COLOR` or `TERM=dumb`; `CLICOLOR_FORCE` forces |
 //!
@@ -33,7 +34,7 @@ use std::fmt;
 use std::path::PathBuf;
 use std::str::FromStr;
 
-use crate::audit::{Audit, Coverage};
+use crate::audit::{Audit, Coverage, StepSweeps};
 use crate::error::Error;
 use crate::render::ColorChoice;
 use crate::scheme::Scheme;
@@ -59,6 +60,8 @@ pub const COVERAGE_VAR: &str = "PLUMBLINE_COVERAGE";
 pub const THREADS_VAR: &str = "PLUMBLINE_THREADS";
 /// Directory for JSON and Markdown reports.
 pub const REPORT_DIR_VAR: &str = "PLUMBLINE_REPORT_DIR";
+/// Which rows get an error-against-step sweep.
+pub const STEP_SWEEPS_VAR: &str = "PLUMBLINE_STEP_SWEEPS";
 /// What each audit prints to standard output.
 pub const FORMAT_VAR: &str = "PLUMBLINE_FORMAT";
 /// Colour of printed tables.
@@ -188,8 +191,11 @@ pub struct Environment {
     /// `PLUMBLINE_THREADS`: default threads of a parallel audit; code wins.
     pub threads: Option<usize>,
     /// `PLUMBLINE_REPORT_DIR`: write a JSON report and a Markdown summary
-    /// of every audit here.
+    /// of every audit here, and the error-against-step picture of every
+    /// row with a step sweep (feature `pictures`).
     pub report_dir: Option<PathBuf>,
+    /// `PLUMBLINE_STEP_SWEEPS`: which rows get a step sweep; code wins.
+    pub step_sweeps: Option<StepSweeps>,
     /// `PLUMBLINE_FORMAT`: what each audit prints.
     pub format: PrintFormat,
     /// `PLUMBLINE_COLOR`: colour of printed tables.
@@ -299,6 +305,9 @@ impl Environment {
             }
             env.report_dir = Some(dir);
         }
+        if let Some(v) = get(STEP_SWEEPS_VAR) {
+            env.step_sweeps = Some(parse(STEP_SWEEPS_VAR, &v)?);
+        }
         if let Some(v) = get(FORMAT_VAR) {
             env.format = parse(FORMAT_VAR, &v)?;
         }
@@ -332,6 +341,9 @@ impl Environment {
         }
         if let Some(n) = self.threads {
             a = a.threads(n);
+        }
+        if let Some(w) = self.step_sweeps {
+            a = a.step_sweeps(w);
         }
         a
     }

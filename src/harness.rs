@@ -57,7 +57,7 @@ impl Report {
 /// * `assert_backward!(layer, &args, key = value, ...)`: each `key = value`
 ///   calls the [`Audit`] setter of that name (`seed`, `scheme`, `margin`,
 ///   `max_absolute`, `max_relative`, `kinks_fail`, `max_elements`,
-///   `max_evaluations`, `own_precision`, `name`), so the macro accepts every
+///   `max_evaluations`, `own_precision`, `step_sweeps`, `name`), so the macro accepts every
 ///   builder option there is, with the same rules.
 ///
 /// Settings start from the `PLUMBLINE_*` environment variables; code

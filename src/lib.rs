@@ -80,11 +80,14 @@
 //! for what they hold: [`scalar`] (the scalar traits and the complex-step
 //! number), [`scheme`] (difference schemes on plain functions), [`audit`]
 //! (progress, defaults), [`report`] (what a row holds), [`render`] (tables,
-//! Markdown, JSON, colour), [`env`] (the `PLUMBLINE_*` variables),
+//! Markdown, JSON, colour, SVG pictures), [`env`] (the `PLUMBLINE_*` variables),
 //! [`strategy`] (proptest), and [`prelude`].
 //!
 //! # Features
 //! * `proptest` (default): strategies and a proptest-friendly entry point.
+//! * `pictures` (default): the error-against-step picture of a row as SVG
+//!   (`render::step_picture`, through plotters), also written beside the
+//!   report files. Without it the report still holds the sweep's numbers.
 //! * `ndarray`: conversions between [`Tensor`] and `ndarray::ArrayD`.
 //! * `gallery`: correct reference layers and planted bugs, as models, and
 //!   random layers from primitives for stress tests.

@@ -153,6 +153,14 @@ pub struct Row {
     /// it was compared element by element only.
     #[serde(default)]
     pub screen: Option<Screen>,
+    /// Central differences of the worst element over a sweep of steps, for
+    /// the error-against-step picture (drawn by `step_picture` in
+    /// [`render`](crate::render), feature `pictures`):
+    /// for failing rows, and for every row when asked
+    /// ([`Audit::step_sweeps`](crate::Audit::step_sweeps)). `None`
+    /// otherwise, or when the row has no worst element that can be moved.
+    #[serde(default)]
+    pub step_sweep: Option<StepSweep>,
     /// Per-element detail, in row-major order (not serialized).
     #[serde(skip)]
     pub elements: Vec<ElementCheck>,
@@ -181,6 +189,63 @@ pub struct Screen {
     /// seeded sample already showed disagreeing elements, or the screen
     /// agreed).
     pub located: usize,
+}
+
+/// Central differences of one element at a sweep of steps, with what they
+/// are compared against: the data of the error-against-step picture.
+///
+/// The distance of each difference from the true derivative is a
+/// truncation error, about h²/6·|φ‴|, that falls with the step h, plus a
+/// rounding error, about ε·|φ|/h, that rises as it shrinks (common
+/// practice): on log-log axes a V. The distance from [`reference`](Self::reference)
+/// draws that V; the distance from [`analytic`](Self::analytic) follows it
+/// only where the backward is right, and stays above the
+/// [`bound`](Self::bound) at every step where it is wrong.
+///
+/// Steps are spaced evenly in log from 10·ε·max(|x|, 1) to
+/// 0.1·max(|x|, 1), with ε and the forward of the reference's precision
+/// ([`Report::reference_precision`]), moving the element in place as the
+/// audit does. The sweep costs two forward evaluations per step
+/// ([`forward_evals`](Self::forward_evals)), counted in the report's.
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+#[non_exhaustive]
+pub struct StepSweep {
+    /// The element swept: the row's worst.
+    pub index: MultiIndex,
+    /// The element's value.
+    #[serde(with = "crate::format::float_text")]
+    pub x: f64,
+    /// The central differences, smallest step first.
+    pub points: Vec<SweepPoint>,
+    /// The backward's value.
+    #[serde(with = "crate::format::float_text")]
+    pub analytic: f64,
+    /// The reference value the audit compared it with.
+    #[serde(with = "crate::format::float_text")]
+    pub reference: f64,
+    /// The bound that applied to |analytic − reference|.
+    #[serde(with = "crate::format::float_text")]
+    pub bound: f64,
+    /// The step of the row's scheme: the widest step the reference relied
+    /// on for real differences, the imaginary step for the complex step.
+    #[serde(with = "crate::format::float_text")]
+    pub chosen_step: f64,
+    /// Forward evaluations the sweep took.
+    pub forward_evals: usize,
+}
+
+/// One central difference of a [`StepSweep`].
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+#[non_exhaustive]
+pub struct SweepPoint {
+    /// The half-width h actually used (x ± h rounded to the working
+    /// precision).
+    #[serde(with = "crate::format::float_text")]
+    pub step: f64,
+    /// (φ(x + h) − φ(x − h))/2h; NaN where the forward was not finite (or
+    /// panicked) at either end.
+    #[serde(with = "crate::format::float_text")]
+    pub numeric: f64,
 }
 
 /// The worst element of a row.

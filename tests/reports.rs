@@ -87,6 +87,12 @@ fn the_macro_writes_json_and_markdown_to_the_report_dir() {
     );
     assert!(md.contains("| 1 | b | param | [2] |"), "{md}");
     assert!(md.contains("| FAIL |"), "{md}");
+    // The failing row's error-against-step picture lies beside them, and
+    // the summary links it; passing audits have none.
+    let svg = format!("{bug}--b.svg");
+    assert!(read(&svg).starts_with("<svg"));
+    assert!(md.contains(&format!("[{svg}]({svg})")), "{md}");
+    assert!(!dir.join(format!("{stem}--b.svg")).exists());
 
     let message = panic_text(unwritable.expect_err("an unwritable directory panics"));
     assert!(

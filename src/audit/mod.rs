@@ -89,6 +89,62 @@ impl std::str::FromStr for Coverage {
     }
 }
 
+/// Which rows of a report get a [`StepSweep`](crate::report::StepSweep):
+/// central differences of the row's worst element over a sweep of steps,
+/// the data of the error-against-step picture. A sweep costs
+/// [`SWEEP_FORWARDS`] forward evaluations per row.
+///
+/// ```
+/// use plumbline::audit::StepSweeps;
+/// assert_eq!("all".parse::<StepSweeps>(), Ok(StepSweeps::All));
+/// assert_eq!(StepSweeps::default(), StepSweeps::Failing);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash)]
+#[non_exhaustive]
+pub enum StepSweeps {
+    /// Rows that do not agree (the default): a passing audit pays nothing.
+    #[default]
+    Failing,
+    /// Every row with an element to sweep.
+    All,
+    /// No row.
+    Off,
+}
+
+/// Forward evaluations one row's step sweep costs (two per step).
+pub const SWEEP_FORWARDS: usize = 2 * crate::scheme::SWEEP_STEPS;
+
+impl StepSweeps {
+    /// The name used by `PLUMBLINE_STEP_SWEEPS` and in messages.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            StepSweeps::Failing => "failing",
+            StepSweeps::All => "all",
+            StepSweeps::Off => "off",
+        }
+    }
+}
+
+impl fmt::Display for StepSweeps {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+impl std::str::FromStr for StepSweeps {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Self, String> {
+        match s.trim().to_ascii_lowercase().as_str() {
+            "failing" => Ok(StepSweeps::Failing),
+            "all" => Ok(StepSweeps::All),
+            "off" => Ok(StepSweeps::Off),
+            other => Err(format!(
+                "unknown choice `{other}`; expected `failing`, `all` or `off`"
+            )),
+        }
+    }
+}
+
 /// Where an audit stands, for a progress callback.
 #[derive(Clone, Debug, PartialEq)]
 #[non_exhaustive]
@@ -152,6 +208,7 @@ pub struct Audit {
     pub(crate) own_precision: bool,
     pub(crate) coverage: Coverage,
     pub(crate) threads: Option<usize>,
+    pub(crate) step_sweeps: StepSweeps,
     pub(crate) progress: Option<ProgressFn>,
 }
 
@@ -176,6 +233,7 @@ impl fmt::Debug for Audit {
             .field("own_precision", &self.own_precision)
             .field("coverage", &self.coverage)
             .field("threads", &self.threads)
+            .field("step_sweeps", &self.step_sweeps)
             .field("progress", &self.progress.as_ref().map(|_| "callback"))
             .finish()
     }
@@ -195,6 +253,7 @@ impl Audit {
             own_precision: false,
             coverage: Coverage::Auto,
             threads: None,
+            step_sweeps: StepSweeps::Failing,
             progress: None,
         }
     }
@@ -369,6 +428,45 @@ impl Audit {
     #[must_use]
     pub fn threads(mut self, n: usize) -> Self {
         self.threads = Some(n);
+        self
+    }
+
+    /// Which rows get a step sweep, the data of the error-against-step
+    /// picture (default [`StepSweeps::Failing`]; see
+    /// [`StepSweep`](crate::report::StepSweep)). Each sweep costs
+    /// [`SWEEP_FORWARDS`] forward evaluations.
+    ///
+    /// ```
+    /// use plumbline::audit::{StepSweeps, SWEEP_FORWARDS};
+    /// use plumbline::prelude::*;
+    ///
+    /// /// Frost-night cooling per station, y = x².
+    /// struct Cooling;
+    /// impl Layer for Cooling {
+    ///     type Real = f64;
+    ///     fn signature(&self) -> Signature { Signature::new().input("x", "station").output("y", "station") }
+    ///     fn backward(&self, a: &Args<f64>, g: &[Tensor<f64>]) -> Gradients<f64> {
+    ///         let x = a.input(0);
+    ///         Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |i| 2.0 * x[i] * g[0][i])])
+    ///     }
+    /// }
+    /// impl GenericForward for Cooling {
+    ///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+    ///         vec![a.input(0).map(|x| x * x)]
+    ///     }
+    /// }
+    /// let args = Args::new(vec![Tensor::new(vec![2], vec![0.5, -1.5])?], vec![]);
+    /// let quiet = Audit::new().run(&Cooling, &args)?;
+    /// assert!(quiet.rows[0].step_sweep.is_none()); // passing rows: no sweep
+    /// let swept = Audit::new().step_sweeps(StepSweeps::All).run(&Cooling, &args)?;
+    /// let sweep = swept.rows[0].step_sweep.as_ref().unwrap();
+    /// assert_eq!(sweep.forward_evals, SWEEP_FORWARDS);
+    /// assert_eq!(swept.forward_evals, quiet.forward_evals + SWEEP_FORWARDS);
+    /// # Ok::<(), plumbline::Error>(())
+    /// ```
+    #[must_use]
+    pub fn step_sweeps(mut self, which: StepSweeps) -> Self {
+        self.step_sweeps = which;
         self
     }
 

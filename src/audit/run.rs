@@ -5,17 +5,17 @@ use std::sync::atomic::{AtomicUsize, Ordering};
 
 use rand::{RngExt, SeedableRng};
 
-use super::{screen, Audit, Coverage, Progress, SCREEN_ABOVE, SCREEN_DIRECTIONS};
+use super::{screen, Audit, Coverage, Progress, StepSweeps, SCREEN_ABOVE, SCREEN_DIRECTIONS};
 use crate::compare::{self, Compared, Prober};
 use crate::diagnosis::summary::{summarize, RowFacts};
 use crate::diagnosis::{diagnose, Evidence};
 use crate::error::Error;
 use crate::format::num;
 use crate::layer::{Args, Forward, Gradients};
-use crate::report::{Report, Row, Screen, Verdict, Worst};
+use crate::report::{Report, Row, Screen, StepSweep, SweepPoint, Verdict, Worst};
 use crate::scalar::Real;
 use crate::scheme::engine::{guarded, Blueprint, Engine};
-use crate::scheme::{scatter_about_parabola, Estimate, KinkProbe, Scheme};
+use crate::scheme::{complex_step_for, scatter_about_parabola, Estimate, KinkProbe, Scheme};
 use crate::signature::{Role, Signature, Slot};
 use crate::tensor::{MultiIndex, Tensor};
 
@@ -465,6 +465,8 @@ impl Audit {
             .as_ref()
             .is_some_and(|g| g.shape() == shape.as_slice());
         let inputs: Vec<f64> = t.args_tensor.data().iter().map(|v| v.as_f64()).collect();
+        // The step each reference took, for the step sweep's chosen point.
+        let steps: Vec<f64> = estimates.iter().map(|e| e.step).collect();
         let mut prober = SlotProber {
             engine,
             slot: t.slot,
@@ -516,6 +518,21 @@ impl Audit {
             joint_kink.as_ref(),
             evidence,
         );
+        let wanted = match self.step_sweeps {
+            StepSweeps::Failing => !s.verdict.is_pass(),
+            StepSweeps::All => true,
+            _ => false,
+        };
+        let step_sweep = match s.worst {
+            Some(k) if wanted => {
+                let e = &elements[k];
+                let step = (t.indices.iter().position(|&j| j == e.index))
+                    .and_then(|p| steps.get(p).copied())
+                    .unwrap_or(0.0);
+                step_sweep(engine, t.slot, &shape, e, step, t.scheme)?
+            }
+            _ => None,
+        };
         Ok(Row {
             name: t.spec.name.clone(),
             role: t.spec.role,
@@ -539,10 +556,48 @@ impl Audit {
             joint_kink,
             diagnosis,
             screen: t.screen,
+            step_sweep,
             shape,
             elements,
         })
     }
+}
+
+/// The step sweep of one element (`None` when it cannot be moved: ±∞ or
+/// NaN). `step` is the reference's widest real step (0 for the complex
+/// step, whose imaginary step is recorded instead).
+fn step_sweep<L: Forward + ?Sized>(
+    engine: &mut Engine<'_, L>,
+    slot: usize,
+    shape: &[usize],
+    e: &compare::ElementCheck,
+    step: f64,
+    scheme: Scheme,
+) -> Result<Option<StepSweep>, Error> {
+    let x = engine.value(slot, e.index);
+    if !x.is_finite() {
+        return Ok(None);
+    }
+    let before = engine.evals;
+    let points = engine
+        .sweep(slot, e.index)?
+        .into_iter()
+        .map(|(step, numeric)| SweepPoint { step, numeric })
+        .collect();
+    Ok(Some(StepSweep {
+        index: MultiIndex::from_flat(shape, e.index),
+        x,
+        points,
+        analytic: e.analytic,
+        reference: e.numeric,
+        bound: e.bound,
+        chosen_step: if scheme == Scheme::ComplexStep {
+            complex_step_for(x)
+        } else {
+            step
+        },
+        forward_evals: engine.evals - before,
+    }))
 }
 
 /// An element where the complex step and real differences disagree.

@@ -1,4 +1,6 @@
-//! Report files for CI: a JSON report and a Markdown summary per audit.
+//! Report files for CI: a JSON report and a Markdown summary per audit,
+//! and an error-against-step picture per row with a step sweep (feature
+//! `pictures`).
 
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
@@ -78,6 +80,11 @@ pub(crate) fn stem(report: &Report, unique: bool) -> String {
 /// missing) as `<test>--<layer>.json` and `.md`, where `<test>` is the
 /// current thread's name (the test's name under `cargo test`); a second
 /// report of the same layer from the same thread gets `--2`, and so on.
+/// With the feature `pictures` (on by default), every row with a
+/// [`StepSweep`](crate::report::StepSweep) (failing rows, by default) also
+/// gets its error-against-step picture as `<test>--<layer>--<tensor>.svg`
+/// (`render::step_picture`), and the Markdown summary links
+/// each picture by its file name.
 /// Returns the paths written; an I/O failure is an error naming the path.
 ///
 /// ```no_run
@@ -91,7 +98,8 @@ pub fn write_report(dir: &Path, report: &Report) -> Result<Vec<PathBuf>, Error> 
     write(dir, &stem(report, true), report)
 }
 
-/// Writes `<dir>/<stem>.json` and `<dir>/<stem>.md`, creating `dir`.
+/// Writes `<dir>/<stem>.json`, `<dir>/<stem>.md` and (feature `pictures`)
+/// `<dir>/<stem>--<tensor>.svg` per row with a step sweep, creating `dir`.
 pub(crate) fn write(dir: &Path, stem: &str, report: &Report) -> Result<Vec<PathBuf>, Error> {
     let io = |path: &Path, e: std::io::Error| Error::ReportIo {
         path: path.display().to_string(),
@@ -100,7 +108,42 @@ pub(crate) fn write(dir: &Path, stem: &str, report: &Report) -> Result<Vec<PathB
     std::fs::create_dir_all(dir).map_err(|e| io(dir, e))?;
     let json_path = dir.join(format!("{stem}.json"));
     std::fs::write(&json_path, json(report)).map_err(|e| io(&json_path, e))?;
+    let mut svgs = Vec::new();
+    let mut links = Vec::new();
+    for (tensor, file, svg) in pictures(stem, report) {
+        let path = dir.join(&file);
+        std::fs::write(&path, svg).map_err(|e| io(&path, e))?;
+        svgs.push(path);
+        links.push((tensor, file));
+    }
     let md = dir.join(format!("{stem}.md"));
-    std::fs::write(&md, super::markdown(report)).map_err(|e| io(&md, e))?;
-    Ok(vec![json_path, md])
+    std::fs::write(&md, super::markdown_linking(report, &links)).map_err(|e| io(&md, e))?;
+    let mut written = vec![json_path, md];
+    written.extend(svgs);
+    Ok(written)
+}
+
+/// (tensor, file name, SVG) of every row with a picture: the file is
+/// `<stem>--<tensor>.svg`, with `--<rank>` added when two tensor names
+/// read the same once made safe for a file name.
+#[cfg(feature = "pictures")]
+fn pictures(stem: &str, report: &Report) -> Vec<(String, String, String)> {
+    let mut out: Vec<(String, String, String)> = Vec::new();
+    for (rank, row) in report.rows.iter().enumerate() {
+        let Some(svg) = super::step_picture(row) else {
+            continue;
+        };
+        let mut file = format!("{stem}--{}.svg", sanitize(&row.name));
+        if out.iter().any(|(_, f, _)| *f == file) {
+            file = format!("{stem}--{}--{}.svg", sanitize(&row.name), rank + 1);
+        }
+        out.push((row.name.clone(), file, svg));
+    }
+    out
+}
+
+/// Without the feature `pictures`, no pictures.
+#[cfg(not(feature = "pictures"))]
+fn pictures(_: &str, _: &Report) -> Vec<(String, String, String)> {
+    Vec::new()
 }

@@ -1,7 +1,8 @@
 //! Renderers: read a [`Report`] and produce text. The aligned terminal
 //! table (plain or coloured, optionally fitted to a width), the failure
-//! messages of the assertion helpers, Markdown for CI job summaries, and
-//! report files. The report itself never calls in here.
+//! messages of the assertion helpers, Markdown for CI job summaries, the
+//! error-against-step picture of a row as SVG (`step_picture`, feature
+//! `pictures`), and report files. The report itself never calls in here.
 //!
 //! `Display` for [`Report`] is the plain table, so `{}` in a panic message
 //! shows everything.
@@ -12,9 +13,13 @@ use crate::format::{err, num, shape_string, shorten_middle};
 use crate::report::{Report, Row};
 
 pub(crate) mod files;
+#[cfg(feature = "pictures")]
+mod picture;
 mod terminal;
 
 pub use files::{json, write_report};
+#[cfg(feature = "pictures")]
+pub use picture::{step_picture, PICTURE_MARGIN};
 pub use terminal::{stdout_style, terminal_width, write_table, ColorChoice};
 
 impl fmt::Display for Report {
@@ -303,6 +308,12 @@ pub(crate) fn failure_head(report: &Report) -> String {
 
 /// A Markdown summary, ready to append to a CI job summary.
 pub fn markdown(report: &Report) -> String {
+    markdown_linking(report, &[])
+}
+
+/// The Markdown summary with a relative link to each row's picture:
+/// `pictures` holds (tensor name, file name) pairs.
+pub(crate) fn markdown_linking(report: &Report, pictures: &[(String, String)]) -> String {
     let mut out = String::new();
     let failing = report.failures().count();
     let _ = writeln!(
@@ -333,6 +344,14 @@ pub fn markdown(report: &Report) -> String {
     for (i, r) in report.rows.iter().enumerate() {
         let c = cells(i, r).map(|s| s.replace('|', "\\|"));
         let _ = writeln!(out, "| {} |", c.join(" | "));
+    }
+    if !pictures.is_empty() {
+        out.push_str(
+            "\nError against step (central differences at the worst element, log-log):\n\n",
+        );
+        for (tensor, file) in pictures {
+            let _ = writeln!(out, "- `{tensor}`: [{file}]({file})");
+        }
     }
     out
 }

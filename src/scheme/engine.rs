@@ -12,8 +12,8 @@ use std::panic::{catch_unwind, AssertUnwindSafe};
 
 use super::complex::{self, Directional};
 use super::{
-    central, joint_probe, kink_test, look, ridders, scatter, Estimate, KinkProbe, Line, Look, Pair,
-    Sample, Scheme, LOOK_OFFSETS,
+    central, joint_probe, kink_test, look, ridders, scatter, sweep, Estimate, KinkProbe, Line,
+    Look, Pair, Sample, Scheme, LOOK_OFFSETS,
 };
 use crate::error::Error;
 use crate::format::num;
@@ -311,6 +311,9 @@ enum Ask {
     /// The kink test at the scale of a real-difference stencil.
     StencilKink(f64),
     Joint(f64),
+    /// Central differences over a sweep of steps (a forward that panics at
+    /// a step gives NaN there, not an error).
+    Sweep,
 }
 
 /// What a line answered.
@@ -320,6 +323,7 @@ enum Answer {
     Pair(Pair),
     Look(Look),
     Probe(Option<KinkProbe>),
+    Sweep(Vec<(f64, f64)>),
 }
 
 fn ask<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
@@ -369,9 +373,13 @@ fn ask<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
             let h = kink_step(factor, &line);
             Answer::Probe(joint_probe(&mut line, h))
         }
+        Ask::Sweep => Answer::Sweep(sweep::sweep(&mut line)),
     };
     *evals += line.evals;
     match line.caught {
+        // A picture is not worth an error: the steps where the forward
+        // panicked are simply missing from it.
+        Some(_) if matches!(question, Ask::Sweep) => Ok(answer),
         Some(c) => Err(c),
         None => Ok(answer),
     }
@@ -1088,6 +1096,18 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             conclusive: true,
             amplification: d.amplification,
         })
+    }
+
+    /// Central differences of element `j` of tensor `slot` over a sweep
+    /// of steps, in the precision references are computed in (`f64` for a
+    /// generic forward, the layer's own otherwise): (half-width,
+    /// derivative) pairs, NaN where the forward was not finite or panicked.
+    /// Moves the element in place like every other question.
+    pub(crate) fn sweep(&mut self, slot: usize, j: usize) -> Result<Vec<(f64, f64)>, Error> {
+        match self.ask(slot, &[(j, 1.0)], Ask::Sweep)? {
+            Answer::Sweep(points) => Ok(points),
+            _ => unreachable!("a sweep was asked for"),
+        }
     }
 
     /// A central difference over ±h at element `j`, in real arithmetic.

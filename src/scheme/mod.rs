@@ -14,6 +14,7 @@
 //! | `ridders.rs` | Ridders' extrapolation, cross-checked at a small step |
 //! | `kink.rs` | the one-sided test for non-differentiable points |
 //! | `complex.rs` | the complex step over a generic forward |
+//! | `sweep.rs` | central differences over a sweep of steps (the error-against-step picture's data) |
 //! | `engine.rs` | lines over a layer's arguments, and which scheme runs |
 
 use std::fmt;
@@ -24,9 +25,12 @@ mod complex;
 pub(crate) mod engine;
 mod kink;
 mod ridders;
+mod sweep;
 
+pub(crate) use complex::step_for as complex_step_for;
 pub use kink::KinkProbe;
 pub(crate) use kink::{joint_probe, kink_test};
+pub(crate) use sweep::SWEEP_STEPS;
 
 /// Which numerical reference produced a derivative.
 ///
