@@ -891,3 +891,63 @@ fn a_forward_that_rounds_to_a_staircase_is_not_a_false_alarm() {
         assert!(r.row("x").unwrap().failing == 0, "case {k}: {r}");
     }
 }
+
+// ------------------------------------- 8. a kink just off the point
+
+/// Frost-alarm ramp on a standardised reading x (plain `f32`):
+/// y = x·min(max(x + 3, 0), 6)/6, quadratic between −3 and 3 and linear
+/// above, with kinks at −3 and 3. At x = 3.00125 the kink is 1.25·10⁻³
+/// away: inside the steps real differences take at that size, far outside
+/// the point test's finest steps. `wrong` plants the quadratic piece's
+/// slope on the linear piece.
+struct FrostAlarmRamp {
+    wrong: bool,
+}
+
+impl Layer for FrostAlarmRamp {
+    type Real = f32;
+    fn signature(&self) -> Signature {
+        Signature::new().input("x", "3").output("y", "3")
+    }
+    fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
+        Gradients::from(vec![Tensor::from_fn(vec![3], |ix| {
+            let x = a.input(0)[ix];
+            let d = if x <= -3.0 {
+                0.0
+            } else if x < 3.0 || self.wrong {
+                (2.0 * x + 3.0) / 6.0
+            } else {
+                1.0
+            };
+            d * up[0][ix]
+        })])
+    }
+}
+
+impl Forward for FrostAlarmRamp {
+    fn forward(&self, a: &Args<f32>) -> Vec<Tensor<f32>> {
+        vec![a.input(0).map(|x| x * (x + 3.0).clamp(0.0, 6.0) / 6.0)]
+    }
+}
+
+#[test]
+fn a_kink_just_off_the_point_is_not_a_false_alarm() {
+    let args = Args::new(vec![vector::<f32>(&[3.001_25, 0.4, -1.2])], vec![]);
+    for seed in 0..20 {
+        let r = Audit::new()
+            .seed(seed)
+            .run(&FrostAlarmRamp { wrong: false }, &args)
+            .unwrap();
+        assert!(r.passed(), "seed {seed}: {r}");
+    }
+    // The quadratic piece's slope on the linear piece, at 3.5 (a kink 0.5
+    // away, outside every step): caught. (At 3.00125 the wrong slope is the
+    // left one-sided derivative itself, which real differences with steps
+    // of 10⁻² cannot tell from a valid value beside a kink.)
+    let args = Args::new(vec![vector::<f32>(&[3.5, 0.4, -1.2])], vec![]);
+    let r = Audit::new()
+        .run(&FrostAlarmRamp { wrong: true }, &args)
+        .unwrap();
+    assert!(!r.passed(), "{r}");
+    assert_eq!(r.rows[0].failing, 1, "{r}");
+}
