@@ -951,3 +951,96 @@ fn a_kink_just_off_the_point_is_not_a_false_alarm() {
     assert!(!r.passed(), "{r}");
     assert_eq!(r.rows[0].failing, 1, "{r}");
 }
+
+// ----------------------- 9. a derivative the complex step underflows
+
+/// Frost-onset gate, y = x·σ(βx) (generic). At βx ≈ −707, σ is about
+/// 1e-307 and the derivative σ(1 + βx(1 − σ)) about 1e-304: the complex
+/// step's imaginary parts, 1e-20·|x| times that, underflow inside σ, and
+/// the derivative reads as exactly 0. `wrong` drops the βx term.
+struct FrostOnsetGate {
+    wrong: bool,
+}
+
+impl Layer for FrostOnsetGate {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new()
+            .input("x", "n")
+            .param("beta", "")
+            .output("y", "n")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let (x, beta) = (a.input(0), a.param(0)[[]]);
+        let sig = |u: f64| {
+            if u < 0.0 {
+                u.exp() / (1.0 + u.exp())
+            } else {
+                1.0 / (1.0 + (-u).exp())
+            }
+        };
+        let dx = Tensor::from_fn(x.shape().to_vec(), |ix| {
+            let s = sig(beta * x[ix]);
+            let slope = if self.wrong {
+                s
+            } else {
+                s * (1.0 + beta * x[ix] * (1.0 - s))
+            };
+            slope * up[0][ix]
+        });
+        let db = (0..x.len())
+            .map(|i| {
+                let s = sig(beta * x[[i]]);
+                x[[i]] * x[[i]] * s * (1.0 - s) * up[0][[i]]
+            })
+            .sum::<f64>();
+        Gradients::from(vec![dx, Tensor::new(vec![], vec![db]).unwrap()])
+    }
+}
+
+impl GenericForward for FrostOnsetGate {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let (x, beta) = (a.input(0), a.param(0)[[]]);
+        // σ written to stay finite on both sides (e^u/(1 + e^u) for u < 0).
+        let sig = |u: T| {
+            if u < T::zero() {
+                u.exp() / (T::one() + u.exp())
+            } else {
+                T::one() / (T::one() + (-u).exp())
+            }
+        };
+        vec![x.map(|v| v * sig(beta * v))]
+    }
+}
+
+#[test]
+fn a_derivative_the_complex_step_underflows_is_recovered_with_a_larger_step() {
+    // Readings of one scale, one of them deep in the gate's off side.
+    let x = [
+        211.168_964_575_533_83,
+        59.463_628_449_121_36,
+        -384.902_426_412_441_1,
+        43.854_916_208_665_43,
+        -3.071_081_949_004_943,
+        -448.782_570_973_080_96,
+        126.110_635_011_857_37,
+        361.893_841_495_134_6,
+        44.952_000_173_349_596,
+        374.722_619_651_370_74,
+    ];
+    let args = Args::new(
+        vec![vector::<f64>(&x)],
+        vec![Tensor::new(vec![], vec![1.836_670_563_117_340_3]).unwrap()],
+    );
+    for seed in 6_001_810..6_001_830 {
+        let r = Audit::new()
+            .seed(seed)
+            .run(&FrostOnsetGate { wrong: false }, &args)
+            .unwrap();
+        assert!(r.passed(), "seed {seed}: {r}");
+    }
+    let r = Audit::new()
+        .run(&FrostOnsetGate { wrong: true }, &args)
+        .unwrap();
+    assert!(!r.passed(), "{r}");
+}

@@ -1014,33 +1014,11 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         }
         let mut d = d;
         if d.finite && d.terms > 0.0 && d.terms * h < NEAR_SUBNORMAL {
-            // A derivative so small that h·Σ|terms| comes within 2¹⁰⁰ of
-            // the subnormal range (gradients near 1e-300) loses digits in
-            // intermediates whose imaginary parts go subnormal before the
-            // outputs' do. A larger step keeps them normal; its truncation
-            // (Im φ(x + ih)/h = φ′ − h²φ‴/6 + …) is measured at twice the
-            // step, as for tiny elements.
-            // At most 1e-6 of the scale φ bends on: x itself for a tiny
-            // element, max(|x|, 1) otherwise (truncation about 1e-13).
-            let room = if complex::tiny(x) {
-                x.abs()
-            } else {
-                x.abs().max(1.0)
-            };
-            // Aim h·Σ|terms| another 2²⁰⁰ higher, well inside the normals.
-            let wide = (NEAR_SUBNORMAL * 2f64.powi(200) / d.terms)
-                .min(1e-6 * room)
-                .max(h);
-            let d1 = self.complex_along(slot, &[(j, 1.0)], wide)?;
-            let d2 = self.complex_along(slot, &[(j, 1.0)], 2.0 * wide)?;
-            evals += 2;
-            if d1.finite && d2.finite {
-                error = 4.0 * f64::EPSILON * d1.terms
-                    + d1.underflow
-                    + (d2.value - d1.value).abs() / 3.0
-                    + d2.underflow;
-                d = d1;
+            if let Some((wide, wide_error)) = self.complex_wide(slot, j, x, d.terms)? {
+                error = wide_error;
+                d = wide;
             }
+            evals += 2;
         }
         Ok(Estimate {
             value: if d.finite { d.value } else { f64::NAN },
@@ -1052,6 +1030,44 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             conclusive: true,
             amplification: d.amplification,
         })
+    }
+
+    /// The complex step again at a larger step, for a derivative so small
+    /// that h·Σ|terms| comes within 2¹⁰⁰ of the subnormal range (gradients
+    /// near 1e-300), or that read as exactly 0 while such underflow may
+    /// have hidden it (`terms` = 0): intermediates whose imaginary parts go
+    /// subnormal before the outputs' do lose digits, or the whole
+    /// derivative. A larger step keeps them normal; its truncation
+    /// (Im φ(x + ih)/h = φ′ − h²φ‴/6 + …) is measured at twice the step, as
+    /// for tiny elements. The step is at most 1e-6 of the scale φ bends
+    /// on: x itself for a tiny element, max(|x|, 1) otherwise (truncation
+    /// about 1e-13). Returns the derivative and its error (two forwards),
+    /// or `None` when either was not finite.
+    fn complex_wide(
+        &mut self,
+        slot: usize,
+        j: usize,
+        x: f64,
+        terms: f64,
+    ) -> Result<Option<(Directional, f64)>, Error> {
+        let room = if complex::tiny(x) {
+            x.abs()
+        } else {
+            x.abs().max(1.0)
+        };
+        // Aim h·Σ|terms| another 2²⁰⁰ higher, well inside the normals.
+        let wide = (NEAR_SUBNORMAL * 2f64.powi(200) / terms)
+            .min(1e-6 * room)
+            .max(complex::step_for(x));
+        let d1 = self.complex_along(slot, &[(j, 1.0)], wide)?;
+        let d2 = self.complex_along(slot, &[(j, 1.0)], 2.0 * wide)?;
+        Ok((d1.finite && d2.finite).then(|| {
+            let error = 4.0 * f64::EPSILON * d1.terms
+                + d1.underflow
+                + (d2.value - d1.value).abs() / 3.0
+                + d2.underflow;
+            (d1, error)
+        }))
     }
 
     /// The derivative of φ along a direction of tensor `slot`: every
@@ -1188,6 +1204,17 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         }
         if scheme == Scheme::ComplexStep {
             let h = complex::step_for(x);
+            // A derivative that read as (nearly) 0 where underflow can hide
+            // it: x·σ(βx) at βx = −707 has a derivative near 1e-305 whose
+            // imaginary part, 1e-20 times smaller, is lost inside σ.
+            if first.scale * h < NEAR_SUBNORMAL {
+                e.evals += 2;
+                if let Some((wide, error)) = self.complex_wide(slot, j, x, first.scale)? {
+                    e.value = wide.value;
+                    e.scale = wide.terms;
+                    e.error = e.error.max(error);
+                }
+            }
             let twice = self.complex_along(slot, &[(j, 1.0)], 2.0 * h)?;
             e.evals += 1;
             if twice.finite {
