@@ -243,9 +243,8 @@ fn legend(
         format!("|D(h) − {} reference|", row.scheme),
         format!("bound {}", err(sweep.bound)),
         format!(
-            "the audit: |backward − reference| = {} ({} at {}step {})",
+            "the audit's point: {} apart, {}step {}",
             err(gap),
-            row.scheme,
             if row.scheme == Scheme::ComplexStep {
                 "imaginary "
             } else {
