@@ -84,6 +84,10 @@
 //! # Features
 //! * `proptest` (default): strategies and a proptest-friendly entry point.
 //! * `ndarray`: conversions between [`Tensor`] and `ndarray::ArrayD`.
+//! * `candle`: layers made from candle custom ops (their own `bwd`
+//!   audited) and from functions of candle tensors (audited through
+//!   candle's autograd), and conversions to and from `candle_core::Tensor`;
+//!   see `candle`.
 //! * `gallery`: correct reference layers and planted bugs, as models, and
 //!   random layers from primitives for stress tests.
 #![deny(missing_docs)]
@@ -94,7 +98,7 @@
 #[doc = include_str!("../README.md")]
 pub struct ReadmeDoctests;
 
-#[cfg(feature = "ndarray")]
+#[cfg(any(feature = "ndarray", feature = "candle"))]
 mod adapters;
 pub mod audit;
 mod compare;
@@ -118,6 +122,11 @@ pub mod strategy;
 mod tensor;
 mod tolerance;
 
+/// Audits of candle custom ops and of candle functions through candle's
+/// autograd, and conversions to and from `candle_core::Tensor` (feature
+/// `candle`).
+#[cfg(feature = "candle")]
+pub use adapters::candle;
 pub use audit::Audit;
 pub use diagnosis::Diagnosis;
 pub use error::Error;
