@@ -166,25 +166,24 @@ pub enum Error {
     /// let layer = CustomOp1Layer::<_, f64>::new(Refuses, [2]);
     /// let x = Tensor::new(vec![2], vec![1.0, 2.0])?;
     /// let err = Audit::new().run(&layer, &Args::new(vec![x], vec![])).unwrap_err();
-    /// assert!(matches!(&err, Error::OpFailed { op, step, .. } if op == "refuses" && step == "cpu_fwd"));
+    /// assert!(matches!(err, Error::OpFailed { op: "refuses", step: "cpu_fwd", .. }), "{err}");
     /// assert!(err.to_string().contains("no reading today"), "{err}");
     /// # }
     /// # Ok::<(), plumbline::Error>(())
     /// ```
-    #[error("layer `{layer}`: op `{op}` returned an error from `{step}` in the audit's {call}{at}: {message}")]
+    #[error("layer `{layer}`: op `{op}` returned an error from `{step}` in the audit's {call}: {message}")]
     OpFailed {
         /// Layer name, as the audit names it.
         layer: String,
         /// The op's own name (a candle custom op's `name()`).
-        op: String,
+        op: &'static str,
         /// Which of the op's calls failed, e.g. `cpu_fwd`, `bwd`,
         /// `Tensor::backward`.
-        step: String,
-        /// The audit's call into the layer, e.g. `forward`, `backward`.
+        step: &'static str,
+        /// The audit's call into the layer, e.g. `forward`, `backward`,
+        /// and where when not at the audit's arguments, e.g.
+        /// ``backward while `x` [1] was moved to 0.5``.
         call: String,
-        /// Where, e.g. `` while `x` [1] was moved to 0.5`` (empty for a
-        /// call at the audit's arguments).
-        at: String,
         /// The op's error, as text.
         message: String,
     },
@@ -239,9 +238,9 @@ pub enum Error {
 #[derive(Clone, Debug, PartialEq)]
 pub(crate) struct OpFailure {
     /// The op's own name.
-    pub op: String,
+    pub op: &'static str,
     /// Which of the op's calls failed.
-    pub step: String,
+    pub step: &'static str,
     /// The op's error, as text.
     pub message: String,
 }
@@ -253,8 +252,7 @@ impl OpFailure {
             layer: layer.to_string(),
             op: self.op,
             step: self.step,
-            call: call.to_string(),
-            at,
+            call: format!("{call}{at}"),
             message: self.message,
         }
     }

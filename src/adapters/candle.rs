@@ -152,16 +152,21 @@ impl<T: Real + WithDType> TryFrom<CandleTensor> for Tensor<T> {
 }
 
 /// Stops the layer call with an op failure (see the module docs).
-fn fail(op: &str, step: &str, message: impl fmt::Display) -> ! {
+fn fail(op: &'static str, step: &'static str, message: impl fmt::Display) -> ! {
     raise(OpFailure {
-        op: op.to_string(),
-        step: step.to_string(),
+        op,
+        step,
         message: message.to_string(),
     })
 }
 
 /// A result of the op in the layer's precision, or the call stopped.
-fn take_back<T: Real + WithDType>(op: &str, step: &str, what: &str, t: &CandleTensor) -> Tensor<T> {
+fn take_back<T: Real + WithDType>(
+    op: &'static str,
+    step: &'static str,
+    what: &str,
+    t: &CandleTensor,
+) -> Tensor<T> {
     if t.dtype() != T::DTYPE {
         fail(
             op,
@@ -210,7 +215,7 @@ impl OpArguments {
     /// The op's forward on candle copies of `args`.
     fn forward<T: Real + WithDType>(
         &self,
-        op: &str,
+        op: &'static str,
         args: &Args<T>,
         fwd: impl Fn(&[CandleTensor]) -> candle_core::Result<CandleTensor>,
     ) -> (Vec<CandleTensor>, CandleTensor) {
@@ -221,7 +226,7 @@ impl OpArguments {
 
     fn outputs<T: Real + WithDType>(
         &self,
-        op: &str,
+        op: &'static str,
         args: &Args<T>,
         fwd: impl Fn(&[CandleTensor]) -> candle_core::Result<CandleTensor>,
     ) -> Vec<Tensor<T>> {
@@ -232,7 +237,7 @@ impl OpArguments {
     /// The op's `bwd` at `args`, with the forward's result and `upstream`.
     fn gradients<T: Real + WithDType>(
         &self,
-        op: &str,
+        op: &'static str,
         args: &Args<T>,
         upstream: &[Tensor<T>],
         fwd: impl Fn(&[CandleTensor]) -> candle_core::Result<CandleTensor>,
@@ -319,6 +324,7 @@ pub struct CustomOp1Layer<C, T> {
 impl<C: CustomOp1, T: Real + WithDType> CustomOp1Layer<C, T> {
     /// The layer of `op` applied to an argument of shape `arg`.
     #[doc = shape_param_docs!()]
+    /// See the example on [`CustomOp1Layer`].
     pub fn new(op: C, arg: impl Into<Vec<usize>>) -> Self {
         CustomOp1Layer {
             op,
@@ -383,6 +389,7 @@ pub struct CustomOp2Layer<C, T> {
 impl<C: CustomOp2, T: Real + WithDType> CustomOp2Layer<C, T> {
     /// The layer of `op` applied to arguments of shapes `arg1` and `arg2`.
     #[doc = shape_param_docs!()]
+    /// See the example on [`CustomOp2Layer`].
     pub fn new(op: C, arg1: impl Into<Vec<usize>>, arg2: impl Into<Vec<usize>>) -> Self {
         CustomOp2Layer {
             op,
@@ -457,6 +464,7 @@ impl<C: CustomOp3, T: Real + WithDType> CustomOp3Layer<C, T> {
     /// The layer of `op` applied to arguments of shapes `arg1`, `arg2` and
     /// `arg3`.
     #[doc = shape_param_docs!()]
+    /// See the example on [`CustomOp3Layer`].
     pub fn new(
         op: C,
         arg1: impl Into<Vec<usize>>,
@@ -491,12 +499,13 @@ macro_rules! op_layer_common {
             }
 
             /// The op's own name (its `name()`), e.g. for
-            /// [`Audit::name`](crate::Audit::name).
+            /// [`Audit::name`](crate::Audit::name) (see the example on
+            /// `with_names`).
             pub fn op_name(&self) -> &'static str {
                 self.op.name()
             }
 
-            /// The op.
+            /// The op, e.g. to call it on candle tensors of your own.
             pub fn op(&self) -> &C {
                 &self.op
             }
@@ -652,7 +661,24 @@ impl<C: CustomOp3, T: Real + WithDType> Forward for CustomOp3Layer<C, T> {
 }
 
 /// What an [`AutogradLayer`]'s function may return: one candle tensor, or
-/// one per declared output.
+/// a `Vec` with one per declared output. Sealed: implemented for these two.
+///
+/// ```
+/// use plumbline::candle::AutogradLayer;
+/// use plumbline::{Args, Audit, Signature, Tensor};
+///
+/// // Two outputs: the hourly mean temperature and its spread.
+/// let sig = Signature::new()
+///     .input("temperature", "station, hour")
+///     .output("mean", "station")
+///     .output("range", "station");
+/// let layer = AutogradLayer::<_, f64>::new(sig, |t: &[candle_core::Tensor]| {
+///     Ok(vec![t[0].mean(1)?, (t[0].max(1)? - t[0].min(1)?)?])
+/// });
+/// let t = Tensor::new(vec![2, 3], vec![4.0, 6.5, 2.0, -1.0, 0.5, 1.5])?;
+/// Audit::new().run(&layer, &Args::new(vec![t], vec![]))?.assert_passed();
+/// # Ok::<(), plumbline::Error>(())
+/// ```
 pub trait AutogradOutputs: sealed::Sealed {
     /// The outputs, in signature order.
     fn into_tensors(self) -> Vec<CandleTensor>;
@@ -722,17 +748,18 @@ mod sealed {
 pub struct AutogradLayer<F, T> {
     f: F,
     signature: Signature,
-    name: String,
+    name: &'static str,
     precision: PhantomData<fn() -> T>,
 }
 
 impl<F, T> AutogradLayer<F, T> {
-    /// The layer of `f`, whose arguments and outputs `signature` declares.
+    /// The layer of `f`, whose arguments and outputs `signature` declares
+    /// (see the example on [`AutogradLayer`]).
     pub fn new(signature: Signature, f: F) -> Self {
         AutogradLayer {
             f,
             signature,
-            name: "function".to_string(),
+            name: "function",
             precision: PhantomData,
         }
     }
@@ -749,12 +776,12 @@ impl<F, T> AutogradLayer<F, T> {
     ///     .with_name("frost_model");
     /// let x = Tensor::new(vec![2], vec![1.0_f32, 4.0])?;
     /// let err = Audit::new().run(&broken, &Args::new(vec![x], vec![])).unwrap_err();
-    /// assert!(matches!(&err, Error::OpFailed { op, .. } if op == "frost_model"), "{err}");
+    /// assert!(matches!(err, Error::OpFailed { op: "frost_model", .. }), "{err}");
     /// # Ok::<(), plumbline::Error>(())
     /// ```
     #[must_use]
-    pub fn with_name(mut self, name: &str) -> Self {
-        self.name = name.to_string();
+    pub fn with_name(mut self, name: &'static str) -> Self {
+        self.name = name;
         self
     }
 }
@@ -776,7 +803,7 @@ where
 {
     fn outputs(&self, xs: &[CandleTensor]) -> Vec<CandleTensor> {
         (self.f)(xs)
-            .unwrap_or_else(|e| fail(&self.name, "function", e))
+            .unwrap_or_else(|e| fail(self.name, "function", e))
             .into_tensors()
     }
 }
@@ -794,7 +821,7 @@ where
     }
 
     fn backward(&self, args: &Args<T>, upstream: &[Tensor<T>]) -> Gradients<T> {
-        let name = &self.name;
+        let name = self.name;
         let roles: Vec<Role> = self.signature.arguments().map(|(_, r)| r).collect();
         let mut vars = Vec::new();
         let xs: Vec<CandleTensor> = args
@@ -858,7 +885,7 @@ where
         self.outputs(&xs)
             .iter()
             .enumerate()
-            .map(|(k, y)| take_back(&self.name, "function", &format!("output {k}"), y))
+            .map(|(k, y)| take_back(self.name, "function", &format!("output {k}"), y))
             .collect()
     }
 }
