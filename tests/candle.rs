@@ -431,6 +431,64 @@ fn err_from_the_forward_is_a_typed_error_naming_the_op() {
     assert!(err.to_string().contains("differ in shape"), "{err}");
 }
 
+/// The spread op refusing humidities above saturation (100 %).
+struct SaturationChecked;
+
+impl CustomOp2 for SaturationChecked {
+    fn name(&self) -> &'static str {
+        "checked_spread"
+    }
+    fn cpu_fwd(
+        &self,
+        s1: &CpuStorage,
+        l1: &Layout,
+        s2: &CpuStorage,
+        l2: &Layout,
+    ) -> CResult<(CpuStorage, Shape)> {
+        if unary_map(s2.as_slice::<f64>()?, l2, |rh| rh)
+            .iter()
+            .any(|&rh| rh > 100.0)
+        {
+            candle_core::bail!("relative humidity above 100 %");
+        }
+        DewPointSpread(SpreadBwd::Correct).cpu_fwd(s1, l1, s2, l2)
+    }
+    fn bwd(&self, t: &CT, rh: &CT, res: &CT, g: &CT) -> CResult<(Option<CT>, Option<CT>)> {
+        DewPointSpread(SpreadBwd::Correct).bwd(t, rh, res, g)
+    }
+}
+
+#[test]
+fn err_at_a_moved_point_says_where() {
+    // Nearly saturated air: the audit's own arguments are fine, but a
+    // reference step above 100 % makes the forward refuse.
+    let layer = CustomOp2Layer::<_, f64>::new(SaturationChecked, [2], [2])
+        .with_names(["temperature", "humidity"], "spread");
+    let t = Tensor::new(vec![2], vec![1.5, 0.5]).unwrap();
+    let rh = Tensor::new(vec![2], vec![93.0, 99.5]).unwrap();
+    let err = Audit::new()
+        .run(&layer, &Args::new(vec![t, rh], vec![]))
+        .unwrap_err();
+    match &err {
+        Error::OpFailed {
+            op: "checked_spread",
+            step: "cpu_fwd",
+            call,
+            message,
+            ..
+        } => {
+            assert!(call.starts_with("forward"), "{err}");
+            // Ridders' method starts with a wide step (here from 93 %).
+            assert!(call.contains("while `humidity` ["), "{err}");
+            assert!(call.contains("was moved to"), "{err}");
+            // One line: no backtrace from candle in the message.
+            assert!(!message.contains('\n'), "{err}");
+            assert!(message.contains("above 100 %"), "{err}");
+        }
+        other => panic!("expected OpFailed from checked_spread, got {other:?}"),
+    }
+}
+
 #[test]
 #[should_panic(expected = "op `dew_point_spread` returned an error from `cpu_fwd`")]
 fn outside_an_audit_the_error_is_a_panic_with_the_same_text() {

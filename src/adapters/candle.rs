@@ -118,7 +118,12 @@ impl<T: Real + WithDType> Tensor<T> {
         let data = t
             .flatten_all()
             .and_then(|flat| flat.to_vec1::<T>())
-            .map_err(|e| failed(format!("candle could not read its elements: {e}")))?;
+            .map_err(|e| {
+                failed(format!(
+                    "candle could not read its elements: {}",
+                    candle_message(&e)
+                ))
+            })?;
         Tensor::new(t.dims().to_vec(), data).map_err(|e| failed(e.to_string()))
     }
 }
@@ -148,6 +153,16 @@ impl<T: Real + WithDType> TryFrom<CandleTensor> for Tensor<T> {
     type Error = Error;
     fn try_from(t: CandleTensor) -> Result<Self, Error> {
         Tensor::from_candle(&t)
+    }
+}
+
+/// A candle error as one line: the error itself, without the backtrace
+/// candle attaches when `RUST_BACKTRACE` is set (the error's place is what
+/// [`Error::OpFailed`] says).
+fn candle_message(e: &candle_core::Error) -> String {
+    match e {
+        candle_core::Error::WithBacktrace { inner, .. } => candle_message(inner),
+        other => other.to_string(),
     }
 }
 
@@ -220,7 +235,7 @@ impl OpArguments {
         fwd: impl Fn(&[CandleTensor]) -> candle_core::Result<CandleTensor>,
     ) -> (Vec<CandleTensor>, CandleTensor) {
         let xs: Vec<CandleTensor> = args.all().iter().map(Tensor::to_candle).collect();
-        let res = fwd(&xs).unwrap_or_else(|e| fail(op, "cpu_fwd", e));
+        let res = fwd(&xs).unwrap_or_else(|e| fail(op, "cpu_fwd", candle_message(&e)));
         (xs, res)
     }
 
@@ -252,7 +267,8 @@ impl OpArguments {
             .first()
             .map(Tensor::to_candle)
             .unwrap_or_else(|| fail(op, "bwd", "no upstream gradient was given"));
-        let grads = bwd(&xs, &res, &grad_res).unwrap_or_else(|e| fail(op, "bwd", e));
+        let grads =
+            bwd(&xs, &res, &grad_res).unwrap_or_else(|e| fail(op, "bwd", candle_message(&e)));
         let grads = grads
             .iter()
             .zip(&self.names)
@@ -803,7 +819,7 @@ where
 {
     fn outputs(&self, xs: &[CandleTensor]) -> Vec<CandleTensor> {
         (self.f)(xs)
-            .unwrap_or_else(|e| fail(self.name, "function", e))
+            .unwrap_or_else(|e| fail(self.name, "function", candle_message(&e)))
             .into_tensors()
     }
 }
@@ -833,7 +849,7 @@ where
                     return t.to_candle();
                 }
                 let v = Var::from_tensor(&t.to_candle())
-                    .unwrap_or_else(|e| fail(name, "Var::from_tensor", e));
+                    .unwrap_or_else(|e| fail(name, "Var::from_tensor", candle_message(&e)));
                 let x = v.as_tensor().clone();
                 vars.push((i, v));
                 x
@@ -845,16 +861,18 @@ where
             let term = y
                 .mul(&g.to_candle())
                 .and_then(|p| p.sum_all())
-                .unwrap_or_else(|e| fail(name, "Σ⟨upstream, y⟩", e));
+                .unwrap_or_else(|e| fail(name, "Σ⟨upstream, y⟩", candle_message(&e)));
             total = Some(match total {
                 None => term,
-                Some(s) => (s + term).unwrap_or_else(|e| fail(name, "Σ⟨upstream, y⟩", e)),
+                Some(s) => {
+                    (s + term).unwrap_or_else(|e| fail(name, "Σ⟨upstream, y⟩", candle_message(&e)))
+                }
             });
         }
         let store = match total {
             Some(t) => t
                 .backward()
-                .unwrap_or_else(|e| fail(name, "Tensor::backward", e)),
+                .unwrap_or_else(|e| fail(name, "Tensor::backward", candle_message(&e))),
             None => fail(name, "Σ⟨upstream, y⟩", "the function returned no output"),
         };
         let grads = vars
