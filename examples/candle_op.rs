@@ -8,9 +8,12 @@
 //!
 //!   γ = ln(RH/100) + b·T/(c + T),   T_d = c·γ/(b − γ),   spread = T − T_d,
 //!
-//! with b = 17.62 and c = 243.12 °C (coefficients over water, as published
-//! by Sonntag, 1990; quoted from memory). The planted bug drops the minus
-//! sign of ∂spread/∂RH; the audit calls it a flipped sign on that row.
+//! with b = 17.62 and c = 243.12 °C, the coefficients over water of
+//! D. Sonntag, "Important new values of the physical constants of 1986,
+//! vapour pressure formulations based on the ITS-90, and psychrometer
+//! formulae", Z. Meteorol. 40 (1990) — title and values quoted from memory.
+//! The planted bug drops the minus sign of ∂spread/∂RH; the audit calls it
+//! a flipped sign on that row.
 //!
 //! Run: `cargo run --features candle --example candle_op`
 
@@ -108,7 +111,7 @@ fn main() -> Result<(), plumbline::Error> {
             "dew_point_spread"
         };
         let report = Audit::new().seed(2026).name(name).run(&layer, &args)?;
-        println!("{report}\n");
+        println!("{report}");
     }
     Ok(())
 }

@@ -15,8 +15,8 @@ use rand::{RngExt, SeedableRng};
 type CT = candle_core::Tensor;
 type CResult<T> = candle_core::Result<T>;
 
-/// Magnus coefficients over water (Sonntag 1990, quoted from memory; any
-/// smooth formula would do for these tests).
+/// Magnus coefficients over water (D. Sonntag, Z. Meteorol. 40, 1990;
+/// quoted from memory; any smooth formula would do for these tests).
 const B: f64 = 17.62;
 const C: f64 = 243.12;
 

@@ -30,8 +30,11 @@
 //!
 //! Everything runs on candle's CPU device.
 //!
-//! candle-core 0.11 declares no minimum Rust version; it is built and
-//! tested here with Rust 1.95. The rest of plumbline needs Rust 1.88.
+//! Rust version: candle-core 0.11 declares no minimum. The crates it brings
+//! in, at the versions plumbline's `Cargo.lock` holds, declare at most 1.88,
+//! plumbline's own; a fresh resolve may pick zip 9.8, which needs 1.89
+//! (`cargo update -p zip --precise 9.5.1` keeps 1.88). The feature is built
+//! and tested with Rust 1.95 only.
 
 use std::fmt;
 use std::marker::PhantomData;
