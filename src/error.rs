@@ -143,6 +143,62 @@ pub enum Error {
         /// The panic's message.
         message: String,
     },
+    /// An op the layer hands its work to (a candle custom op, candle's
+    /// autograd) returned an error instead of a value. The op did not
+    /// panic; the layer's adapter stopped the call and the audit reports
+    /// which op, which of its calls, and the audit's call it happened in.
+    ///
+    /// ```
+    /// # #[cfg(feature = "candle")] {
+    /// use candle_core::{CpuStorage, CustomOp1, Layout, Shape};
+    /// use plumbline::candle::CustomOp1Layer;
+    /// use plumbline::{Args, Audit, Error, Tensor};
+    ///
+    /// /// An op whose forward refuses every input.
+    /// struct Refuses;
+    /// impl CustomOp1 for Refuses {
+    ///     fn name(&self) -> &'static str { "refuses" }
+    ///     fn cpu_fwd(&self, _: &CpuStorage, _: &Layout) -> candle_core::Result<(CpuStorage, Shape)> {
+    ///         candle_core::bail!("no reading today")
+    ///     }
+    /// }
+    ///
+    /// let layer = CustomOp1Layer::<_, f64>::new(Refuses, [2]);
+    /// let x = Tensor::new(vec![2], vec![1.0, 2.0])?;
+    /// let err = Audit::new().run(&layer, &Args::new(vec![x], vec![])).unwrap_err();
+    /// assert!(matches!(err, Error::OpFailed { op: "refuses", step: "cpu_fwd", .. }), "{err}");
+    /// assert!(err.to_string().contains("no reading today"), "{err}");
+    /// # }
+    /// # Ok::<(), plumbline::Error>(())
+    /// ```
+    #[error("layer `{layer}`: op `{op}` returned an error from `{step}` in the audit's {call}: {message}")]
+    OpFailed {
+        /// Layer name, as the audit names it.
+        layer: String,
+        /// The op's own name (a candle custom op's `name()`).
+        op: &'static str,
+        /// Which of the op's calls failed, e.g. `cpu_fwd`, `bwd`,
+        /// `Tensor::backward`.
+        step: &'static str,
+        /// The audit's call into the layer, e.g. `forward`, `backward`,
+        /// and where when not at the audit's arguments, e.g.
+        /// ``backward while `x` [1] was moved to 0.5``.
+        call: String,
+        /// The op's error, as text.
+        message: String,
+    },
+    /// A tensor of another library could not become a [`Tensor`](crate::Tensor)
+    /// (or the other way round): another element type, a device the
+    /// conversion cannot read, an error of that library.
+    #[error("cannot convert {from} to {to}: {detail}")]
+    Conversion {
+        /// What was given, e.g. `a candle tensor of dtype bf16 and shape [2, 3]`.
+        from: String,
+        /// What was asked for, e.g. `Tensor<f32>`.
+        to: String,
+        /// Why not, and what to do.
+        detail: String,
+    },
     /// `backward` returned more gradients than the signature has
     /// differentiable tensors.
     #[error("layer `{layer}`: backward returned {found} gradient(s), but the signature has {expected} differentiable tensor(s) ({names}); fixed inputs take no gradient")]
@@ -174,4 +230,59 @@ pub enum Error {
         /// The I/O error, as text.
         detail: String,
     },
+}
+
+/// An op's error carried out of a layer call, which can only return values
+/// or panic: an adapter records it here and panics with its text; the
+/// audit's guard takes it back and reports [`Error::OpFailed`].
+#[derive(Clone, Debug, PartialEq)]
+pub(crate) struct OpFailure {
+    /// The op's own name.
+    pub op: &'static str,
+    /// Which of the op's calls failed.
+    pub step: &'static str,
+    /// The op's error, as text.
+    pub message: String,
+}
+
+impl OpFailure {
+    /// The failure as an error of the audit's `call` into `layer`.
+    pub(crate) fn into_error(self, layer: &str, call: &str, at: String) -> Error {
+        Error::OpFailed {
+            layer: layer.to_string(),
+            op: self.op,
+            step: self.step,
+            call: format!("{call}{at}"),
+            message: self.message,
+        }
+    }
+}
+
+impl std::fmt::Display for OpFailure {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(
+            f,
+            "op `{}` returned an error from `{}`: {}",
+            self.op, self.step, self.message
+        )
+    }
+}
+
+thread_local! {
+    /// The op failure behind the panic in flight on this thread, if any.
+    static PENDING: std::cell::RefCell<Option<OpFailure>> = const { std::cell::RefCell::new(None) };
+}
+
+/// Records `failure` for the audit's guard and panics with its text (the
+/// text alone is what a caller outside an audit sees).
+#[cfg(feature = "candle")]
+pub(crate) fn raise(failure: OpFailure) -> ! {
+    let text = failure.to_string();
+    PENDING.with(|p| *p.borrow_mut() = Some(failure));
+    panic!("{text}")
+}
+
+/// Takes the op failure recorded on this thread, leaving none.
+pub(crate) fn take_pending() -> Option<OpFailure> {
+    PENDING.with(|p| p.borrow_mut().take())
 }

@@ -89,6 +89,10 @@
 //!   (`render::step_picture`, through plotters), also written beside the
 //!   report files. Without it the report still holds the sweep's numbers.
 //! * `ndarray`: conversions between [`Tensor`] and `ndarray::ArrayD`.
+//! * `candle`: layers made from candle custom ops (their own `bwd`
+//!   audited) and from functions of candle tensors (audited through
+//!   candle's autograd), and conversions to and from `candle_core::Tensor`;
+//!   see `candle`.
 //! * `gallery`: correct reference layers and planted bugs, as models, and
 //!   random layers from primitives for stress tests.
 #![deny(missing_docs)]
@@ -99,7 +103,7 @@
 #[doc = include_str!("../README.md")]
 pub struct ReadmeDoctests;
 
-#[cfg(feature = "ndarray")]
+#[cfg(any(feature = "ndarray", feature = "candle"))]
 mod adapters;
 pub mod audit;
 mod compare;
@@ -124,6 +128,11 @@ pub mod strategy;
 mod tensor;
 mod tolerance;
 
+/// Audits of candle custom ops and of candle functions through candle's
+/// autograd, and conversions to and from `candle_core::Tensor` (feature
+/// `candle`).
+#[cfg(feature = "candle")]
+pub use adapters::candle;
 pub use audit::Audit;
 pub use diagnosis::Diagnosis;
 pub use error::Error;

@@ -29,14 +29,10 @@ fn cost_per_element(scheme: Scheme) -> u64 {
     }
 }
 
-/// Calls the layer, turning a panic into an error that names the call.
+/// Calls the layer, turning a panic (or an op's error an adapter carried
+/// out of the call) into an error that names the call.
 fn call<T>(layer: &str, call: &str, f: impl FnOnce() -> T) -> Result<T, Error> {
-    guarded(f).map_err(|message| Error::LayerPanicked {
-        layer: layer.to_string(),
-        call: call.to_string(),
-        at: String::new(),
-        message,
-    })
+    guarded(f).map_err(|fault| fault.into_error(layer, call, String::new()))
 }
 
 impl Audit {

@@ -15,7 +15,7 @@ use super::{
     central, joint_probe, kink_test, look, ridders, scatter, sweep, Estimate, KinkProbe, Line,
     Look, Pair, Sample, Scheme, LOOK_OFFSETS,
 };
-use crate::error::Error;
+use crate::error::{take_pending, Error, OpFailure};
 use crate::format::num;
 use crate::layer::sealed::Reference;
 use crate::layer::{Args, Forward};
@@ -33,9 +33,39 @@ pub(crate) fn panic_message(payload: &(dyn std::any::Any + Send)) -> String {
     }
 }
 
-/// Runs `f`, turning a panic into its message.
-pub(crate) fn guarded<T>(f: impl FnOnce() -> T) -> Result<T, String> {
-    catch_unwind(AssertUnwindSafe(f)).map_err(|p| panic_message(p.as_ref()))
+/// What stopped a layer call: a panic, or an op's error that an adapter
+/// carried out of the call (see `error::raise`).
+#[derive(Debug)]
+pub(crate) struct Fault {
+    /// The panic's message.
+    message: String,
+    /// The op failure behind the panic, if an adapter raised one.
+    op: Option<OpFailure>,
+}
+
+impl Fault {
+    /// The fault as an error of the audit's `call` into `layer`.
+    pub(crate) fn into_error(self, layer: &str, call: &str, at: String) -> Error {
+        match self.op {
+            Some(op) => op.into_error(layer, call, at),
+            None => Error::LayerPanicked {
+                layer: layer.to_string(),
+                call: call.to_string(),
+                at,
+                message: self.message,
+            },
+        }
+    }
+}
+
+/// Runs `f`, turning a panic into a [`Fault`].
+pub(crate) fn guarded<T>(f: impl FnOnce() -> T) -> Result<T, Fault> {
+    // A failure left by a call outside any guard is not this call's.
+    take_pending();
+    catch_unwind(AssertUnwindSafe(f)).map_err(|p| Fault {
+        message: panic_message(p.as_ref()),
+        op: take_pending(),
+    })
 }
 
 /// Σᵢ f(wᵢ, yᵢ) over every output element, or `None` when the outputs do
@@ -91,7 +121,7 @@ impl<U: Real> Working<U> {
 
 /// Where a panic happened during a line's evaluations.
 struct Caught {
-    message: String,
+    fault: Fault,
     at: String,
 }
 
@@ -179,7 +209,7 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
         self.evals += 1;
         let y = match outcome {
             Ok(y) => y,
-            Err(message) => {
+            Err(fault) => {
                 if self.caught.is_none() {
                     let shape = self.work.args.all()[self.slot].shape();
                     let at = match (self.targets.as_slice(), moved_to) {
@@ -195,7 +225,7 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
                             self.slot_name
                         ),
                     };
-                    self.caught = Some(Caught { message, at });
+                    self.caught = Some(Caught { fault, at });
                 }
                 return Sample {
                     step,
@@ -682,17 +712,16 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
                 .get(grad)
                 .and_then(|t| t.data().get(j))
                 .map(|v| v.as_f64())),
-            Err(message) => Err(Error::LayerPanicked {
-                layer: self.layer_name.to_string(),
-                call: "backward".to_string(),
-                at: format!(
+            Err(fault) => Err(fault.into_error(
+                self.layer_name,
+                "backward",
+                format!(
                     " while `{}` {} was moved to {}",
                     self.slot_names[slot],
                     self.own.args.all()[slot].index_of(j),
                     num(moved)
                 ),
-                message,
-            }),
+            )),
         }
     }
 
@@ -761,13 +790,9 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             return Ok(());
         }
         let args = self.own.args.map(|v| v.as_f64());
-        let base =
-            guarded(|| generic.forward_f64(&args)).map_err(|message| Error::LayerPanicked {
-                layer: self.layer_name.to_string(),
-                call: "forward (in f64)".to_string(),
-                at: String::new(),
-                message,
-            })?;
+        let base = guarded(|| generic.forward_f64(&args)).map_err(|fault| {
+            fault.into_error(self.layer_name, "forward (in f64)", String::new())
+        })?;
         self.evals += 1;
         let mut work = Working::new(args, &base);
         // The forward's own rounding at the point, by running error
@@ -832,12 +857,7 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             }
         };
         self.evals += evals;
-        outcome.map_err(|c| Error::LayerPanicked {
-            layer: self.layer_name.to_string(),
-            call: call.to_string(),
-            at: c.at,
-            message: c.message,
-        })
+        outcome.map_err(|c| c.fault.into_error(self.layer_name, call, c.at))
     }
 
     /// A real-difference estimate of element `j` of tensor `slot`.
@@ -896,12 +916,7 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         match answer {
             Ok(Answer::Probe(p)) => Ok(p),
             Ok(_) => unreachable!("a probe was asked for"),
-            Err(c) => Err(Error::LayerPanicked {
-                layer: self.layer_name.to_string(),
-                call: "forward".to_string(),
-                at: c.at,
-                message: c.message,
-            }),
+            Err(c) => Err(c.fault.into_error(self.layer_name, "forward", c.at)),
         }
     }
 
@@ -969,7 +984,7 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         self.evals += 1;
         match caught {
             None => Ok(d),
-            Some(message) => {
+            Some(fault) => {
                 let x = self.own.args.all()[slot].data()[targets[0].0].as_f64();
                 let at = if targets.len() == 1 {
                     format!(
@@ -985,12 +1000,7 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
                         self.slot_names[slot]
                     )
                 };
-                Err(Error::LayerPanicked {
-                    layer: self.layer_name.to_string(),
-                    call: "forward (complex step)".to_string(),
-                    at,
-                    message,
-                })
+                Err(fault.into_error(self.layer_name, "forward (complex step)", at))
             }
         }
     }
