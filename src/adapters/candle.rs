@@ -224,8 +224,7 @@ impl OpArguments {
     fn signature(&self) -> Signature {
         let mut sig = Signature::new();
         for (name, shape) in self.names.iter().zip(&self.shapes) {
-            let spec: Vec<String> = shape.iter().map(usize::to_string).collect();
-            sig = sig.input(name, &spec.join(", "));
+            sig = sig.input_shape(name, shape);
         }
         sig.output(&self.output, "*")
     }
