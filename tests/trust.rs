@@ -962,6 +962,16 @@ struct FrostOnsetGate {
     wrong: bool,
 }
 
+/// σ written to stay finite on both sides (e^u/(1 + e^u) for u < 0), for
+/// the forward and the backward alike.
+fn gate_sigmoid<T: Scalar>(u: T) -> T {
+    if u < T::zero() {
+        u.exp() / (T::one() + u.exp())
+    } else {
+        T::one() / (T::one() + (-u).exp())
+    }
+}
+
 impl Layer for FrostOnsetGate {
     type Real = f64;
     fn signature(&self) -> Signature {
@@ -972,13 +982,7 @@ impl Layer for FrostOnsetGate {
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         let (x, beta) = (a.input(0), a.param(0)[[]]);
-        let sig = |u: f64| {
-            if u < 0.0 {
-                u.exp() / (1.0 + u.exp())
-            } else {
-                1.0 / (1.0 + (-u).exp())
-            }
-        };
+        let sig = gate_sigmoid::<f64>;
         let dx = Tensor::from_fn(x.shape().to_vec(), |ix| {
             let s = sig(beta * x[ix]);
             let slope = if self.wrong {
@@ -1001,15 +1005,7 @@ impl Layer for FrostOnsetGate {
 impl GenericForward for FrostOnsetGate {
     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
         let (x, beta) = (a.input(0), a.param(0)[[]]);
-        // σ written to stay finite on both sides (e^u/(1 + e^u) for u < 0).
-        let sig = |u: T| {
-            if u < T::zero() {
-                u.exp() / (T::one() + u.exp())
-            } else {
-                T::one() / (T::one() + (-u).exp())
-            }
-        };
-        vec![x.map(|v| v * sig(beta * v))]
+        vec![x.map(|v| v * gate_sigmoid(beta * v))]
     }
 }
 
