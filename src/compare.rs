@@ -209,17 +209,21 @@ pub(crate) fn compare(
     }
     // Once a tensor has a kink, its agreeing elements are probed too: an
     // element that matched the reference by the luck of a tie is at a kink
-    // all the same and belongs in the joint test below.
+    // all the same and belongs in the joint test below. The reference there
+    // took one side of the tie (or straddled it): one-sided values that do
+    // not hold the reference's own value are a smooth φ bending within the
+    // probe's step, not a tie.
     if elements.iter().any(|e| e.status.is_kink()) {
         for e in elements.iter_mut() {
             if e.status == ElementStatus::Agrees {
-                if let Some(probe) = prober.kink(e.index)?.filter(|p| p.at_point) {
+                let probe = prober.kink(e.index)?;
+                if let Some(probe) = probe.filter(|p| p.at_point && fits(e.numeric, p, e.bound)) {
                     e.status = ElementStatus::Kink { probe, fits: true };
                 }
             }
         }
     }
-    let joint_kink = joint_test(&elements, prober)?;
+    let joint_kink = joint_test(&elements, prober, tol, layer_eps)?;
     Ok(Compared {
         elements,
         joint_kink,
@@ -322,14 +326,36 @@ fn fits(analytic: f64, probe: &KinkProbe, bound: f64) -> bool {
 /// alone; so are pairs whose joint one-sided values are just the sums of
 /// their own (separate kinks whose jumps cancel), and pairs whose joint
 /// move did not change φ at all.
+///
+/// Each element's share is allowed the backward's rounding at the size of
+/// its one-sided values, not only at the size of its own value and
+/// reference: an element that got 0 of a tie (and whose reference took
+/// that side too) still computes nothing exactly, while the element that
+/// got the whole gradient computed it with rounding.
 fn joint_test(
     elements: &[ElementCheck],
     prober: &mut dyn Prober,
+    tol: &Tolerance,
+    layer_eps: f64,
 ) -> Result<Option<JointKink>, Error> {
-    let kinked: Vec<(&ElementCheck, KinkProbe)> = elements
+    let kinked: Vec<(ElementCheck, KinkProbe)> = elements
         .iter()
         .filter_map(|e| match e.status {
-            ElementStatus::Kink { probe, .. } => Some((e, probe)),
+            ElementStatus::Kink { probe, .. } => {
+                let side = probe.left.abs().max(probe.right.abs());
+                let at_sides = Estimate {
+                    value: side,
+                    error: e.error,
+                    scale: e.scale.max(side),
+                    forward_scale: 0.0,
+                    evals: 0,
+                    step: 0.0,
+                    conclusive: e.decided,
+                    amplification: 1.0,
+                };
+                let bound = e.bound.max(tol.bound(&at_sides, e.analytic, layer_eps));
+                Some((ElementCheck { bound, ..*e }, probe))
+            }
             _ => None,
         })
         .collect();

@@ -41,6 +41,11 @@ fn cs<F: Fn(ComplexStep<f64>) -> ComplexStep<f64>>(f: F, x: f64) -> f64 {
     complex_step_derivative(f, x, ComplexStep::<f64>::default_step())
 }
 
+/// The complex-step derivative with an explicit (possibly negative) step.
+fn cs_with<F: Fn(ComplexStep<f64>) -> ComplexStep<f64>>(f: F, x: f64, h: f64) -> f64 {
+    complex_step_derivative(f, x, h)
+}
+
 // ------------------------------------------------- 1. published test function
 
 /// f(x) = eˣ / √(sin³x + cos³x): the numerical example of Squire & Trapp,
@@ -257,31 +262,42 @@ fn abs_is_sign_convention_not_modulus() {
     // d|x|/dx = sign x; Martins et al. 2003 convention abs(z) = ±z.
     assert_eq!(cs(|x| x.abs(), -2.0), -1.0);
     assert_eq!(cs(|x| x.abs(), 2.0), 1.0);
-    // One-sided at the kink: the test is `re < 0`, so 0 takes the + branch.
-    assert_eq!(cs(|x| x.abs(), 0.0), 1.0);
+    // One-sided at the kink, by the sign of the step: left-hand −1 with
+    // h > 0, right-hand +1 with h < 0.
+    assert_eq!(cs(|x| x.abs(), 0.0), -1.0);
+    assert_eq!(cs_with(|x| x.abs(), 0.0, -H), 1.0);
     // The modulus would lose it: |−2 + ih| = 2 exactly in f64.
     let z = ComplexStep::seeded(-2.0_f64, H);
     assert_eq!(z.re.hypot(z.im), 2.0);
 }
 
 #[test]
-fn max_min_return_whole_argument_second_on_tie() {
+fn max_min_return_whole_argument_and_break_ties_by_the_step() {
     let one = ComplexStep::real(1.0_f64);
-    // max(x, 1): x wins above 1, the constant at and below (tie -> second).
+    // max(x, 1): x wins above 1, the constant below.
     assert_eq!(cs(|x| x.max(one), 2.0), 1.0);
+    assert_eq!(cs(|x| x.max(one), 0.5), 0.0);
+    // At an exact tie the argument the real function would pick at x − h
+    // wins: with h > 0 the left-hand derivative (0 for max(x, 1), 1 for
+    // min(x, 1)), with h < 0 the right-hand one, whatever the order of the
+    // arguments (one-sided derivatives of max and min: common practice).
     assert_eq!(cs(|x| x.max(one), 1.0), 0.0);
-    assert_eq!(cs(|x| one.max(x), 1.0), 1.0);
-    assert_eq!(cs(|x| x.min(one), 0.0), 1.0);
-    assert_eq!(cs(|x| x.min(one), 1.0), 0.0);
+    assert_eq!(cs(|x| one.max(x), 1.0), 0.0);
+    assert_eq!(cs(|x| x.min(one), 1.0), 1.0);
     assert_eq!(cs(|x| one.min(x), 1.0), 1.0);
-    // ReLU written with max: one-sided (0) at the kink.
+    assert_eq!(cs_with(|x| x.max(one), 1.0, -H), 1.0);
+    assert_eq!(cs_with(|x| one.min(x), 1.0, -H), 0.0);
+    assert_eq!(cs(|x| x.min(one), 0.0), 1.0);
+    // ReLU written with max: left-hand 0 and right-hand 1 at the kink.
     let zero = ComplexStep::real(0.0_f64);
     assert_eq!(cs(|x| x.max(zero), 0.0), 0.0);
+    assert_eq!(cs_with(|x| x.max(zero), 0.0, -H), 1.0);
     assert_eq!(cs(|x| x.max(zero), 0.5), 1.0);
-    // A NaN real part loses, as for f64::max.
-    let nan = ComplexStep::real(f64::NAN);
-    assert_eq!(cs(|x| x.max(nan), 3.0), 1.0);
-    assert_eq!(cs(|x| nan.min(x), 3.0), 1.0);
+    // Two seeded values that tie: max(x, 2x − 1) at x = 1 has left-hand
+    // slope 1 and right-hand slope 2.
+    let two = ComplexStep::real(2.0_f64);
+    assert_eq!(cs(|x| x.max(two * x - one), 1.0), 1.0);
+    assert_eq!(cs_with(|x| x.max(two * x - one), 1.0, -H), 2.0);
 }
 
 #[test]
@@ -635,9 +651,13 @@ fn clamp_passes_the_derivative_of_the_selected_argument() {
     assert_eq!(cs(|l| x.clamp(l, hi), -1.0), 1.0);
     let x = ComplexStep::real(7.0_f64);
     assert_eq!(cs(|h| x.clamp(lo, h), 2.0), 1.0);
-    // At a bound, x itself is returned (not strictly outside): slope 1.
+    // At a bound the step decides, as for max and min: with h > 0 the
+    // left-hand slopes, 1 at the upper bound and 0 at the lower one; with
+    // h < 0 the right-hand ones, 0 and 1.
     assert_eq!(cs(|x| x.clamp(lo, hi), 2.0), 1.0);
-    assert_eq!(cs(|x| x.clamp(lo, hi), -1.0), 1.0);
+    assert_eq!(cs(|x| x.clamp(lo, hi), -1.0), 0.0);
+    assert_eq!(cs_with(|x| x.clamp(lo, hi), 2.0, -H), 0.0);
+    assert_eq!(cs_with(|x| x.clamp(lo, hi), -1.0, -H), 1.0);
     // The value agrees with f64::clamp.
     for x in [-3.0, -1.0, 0.5, 2.0, 7.0] {
         assert_eq!(ComplexStep::real(x).clamp(lo, hi).re, x.clamp(-1.0, 2.0));

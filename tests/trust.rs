@@ -1040,3 +1040,79 @@ fn a_derivative_the_complex_step_underflows_is_recovered_with_a_larger_step() {
         .unwrap();
     assert!(!r.passed(), "{r}");
 }
+
+// -------------------------- 10. a tie that only rounding made (generic)
+
+/// Orchard frost margin from two sensors' small drifts t (generic, `f64`):
+/// y = max(m₀, m₁) with mᵢ = (c + tᵢ⁴)² − c², c = 4, written the obvious
+/// way. At |t| ~ 2·10⁻⁶, tᵢ⁴ ~ 10⁻²³ is far below an ulp of c, so both
+/// margins round to exactly 0: the computed forward ties where exact
+/// arithmetic does not, and real differences see a flat φ (no kink) while
+/// the complex step sees each margin's exact derivative 8c·tᵢ³. The
+/// backward routes the tie to the first margin, as `>=` does; `factor`
+/// plants a wrong slope on that route.
+struct FrostMargin {
+    factor: f64,
+}
+
+fn frost_margin<T: Scalar>(t: &Tensor<T>, i: usize) -> T {
+    let c = T::from(4.0).unwrap();
+    let q = t[[i]].powi(4);
+    (c + q) * (c + q) - c * c
+}
+
+impl Layer for FrostMargin {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new().input("t", "2").output("y", "")
+    }
+    fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let t = a.input(0);
+        let k = if frost_margin(t, 0) >= frost_margin(t, 1) {
+            0
+        } else {
+            1
+        };
+        let slope = 2.0 * (4.0 + t[[k]].powi(4)) * 4.0 * t[[k]].powi(3);
+        let dt = Tensor::from_fn(vec![2], |ix| {
+            if ix[0] == k {
+                self.factor * slope * up[0][[]]
+            } else {
+                0.0
+            }
+        });
+        Gradients::from(vec![dt])
+    }
+}
+
+impl GenericForward for FrostMargin {
+    fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+        let t = a.input(0);
+        vec![Tensor::scalar(frost_margin(t, 0).max(frost_margin(t, 1)))]
+    }
+}
+
+#[test]
+fn a_tie_that_only_rounding_made_is_a_kink_not_a_false_alarm() {
+    for k in 0..100 {
+        let t = [1.5e-6 + k as f64 * 1e-9, 2.5e-6 - k as f64 * 1e-9];
+        let args = Args::new(vec![vector::<f64>(&t)], vec![]);
+        // Correct: the complex step, seeded at +ih and −ih, gives each
+        // side of the tie (0 and 8c·t³ for the margin not routed to), and
+        // the backward's 0 lies between them.
+        let r = Audit::new()
+            .seed(k)
+            .run(&FrostMargin { factor: 1.0 }, &args)
+            .unwrap();
+        assert!(r.passed(), "case {k}: {r}");
+        assert!(r.row("t").unwrap().kinks >= 1, "case {k}: {r}");
+        // A doubled slope on the routed margin lies outside both sides: a
+        // kink outside its one-sided values, which fails when kinks fail.
+        let r = Audit::new()
+            .seed(k)
+            .kinks_fail(true)
+            .run(&FrostMargin { factor: 2.0 }, &args)
+            .unwrap();
+        assert!(!r.passed(), "case {k}: {r}");
+    }
+}

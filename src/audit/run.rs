@@ -756,7 +756,14 @@ impl<L: Forward + ?Sized> Prober for SlotProber<'_, '_, L> {
         if self.scheme == Scheme::ComplexStep {
             // Only a kink at the point itself matters to the complex step:
             // one that is merely near is outside its (imaginary) stencil.
-            return Ok(probe.filter(|p| p.at_point));
+            // A tie that rounding made, which real differences cannot see,
+            // shows in the complex step's own one-sided values.
+            // (An `f32` forward flat at its own precision is no evidence of
+            // which one-sided values a tie there allows.)
+            return match probe.filter(|p| p.at_point) {
+                Some(p) if p.left != p.right => Ok(Some(p)),
+                other => Ok(self.engine.complex_sides(self.slot, j)?.or(other)),
+            };
         }
         // Real differences also straddle kinks further out, up to the scale
         // of their steps.

@@ -63,8 +63,8 @@ use crate::scalar::{Real, Scalar};
 /// | `ln`, `log2`, `log10`, `ln_1p`, `sqrt`, `cbrt`, `powf` | genuine complex formula where the real part lies off the branch point (`re > 0`; `re ≠ 0` for `cbrt`); otherwise the value/derivative rule below |
 /// | `asin`, `acos`, `atan`, `atan2`, `asinh`, `acosh`, `atanh`, `erf`, `hypot`, `powf` with `re ≤ 0` | value/derivative rule `g(x + iy) = g(x) + i·y·g'(x)` |
 /// | `==`, `<`, `partial_cmp`, [`Zero::is_zero`] | real parts only |
-/// | `abs` | `z` if `re ≥ 0`, `−z` if `re < 0` (never the modulus) |
-/// | `max`, `min`, `clamp` | the whole argument with the larger (smaller) real part; **on a tie the second argument** (`other`) is returned; a NaN real part loses, as for `f64` |
+/// | `abs` | `z` if `re > 0`, `−z` if `re < 0` (never the modulus); at `re = 0`, `−z` if `im > 0` |
+/// | `max`, `min`, `clamp`, `abs_sub` | the whole argument with the larger (smaller) real part; **on an exact tie the smaller (larger) imaginary part** wins, as the real function would choose at x − h (left-hand derivatives for h > 0); a NaN real part loses, as for `f64` |
 /// | `signum`, `floor`, `ceil`, `round`, `trunc` | applied to `re`; `im = 0` |
 /// | `fract`, `%` | `re` as for reals; `im` carries the derivative (1 for `fract`) |
 /// | `is_nan` / `is_finite` / `is_infinite` | look at **both** parts: a NaN derivative is a NaN |
@@ -111,11 +111,13 @@ use crate::scalar::{Real, Scalar};
 ///   Use [`Float::abs`] (which follows the sign convention above), never
 ///   `√(re² + im²)` or a hand-written conjugate.
 /// * **At a kink the result is a one-sided derivative, with no warning.**
-///   The branch the real-part comparison selects decides: `abs` at `0`
-///   gives `+1`, `max(x, 1)` at the tie `x = 1` gives `0` (the second
-///   argument wins), ReLU written as `if x > 0 { x } else { 0 }` gives `0`
-///   at `0`. Genuine singularities (`sqrt` or `ln` at `0`) give `±∞`. The
-///   complex step cannot detect kinks; pair it with a real-arithmetic test.
+///   `abs`, `max`, `min` and `clamp` at an exact tie follow the step: with
+///   `h > 0` the left-hand derivative (`abs` at `0` gives `−1`, `max(x, 1)`
+///   at `x = 1` gives `0`), with `h < 0` the right-hand one (`+1`, `1`);
+///   the audit seeds both to see a tie that rounding made. A branch written with
+///   `<` compares real parts only: ReLU as `if x > 0 { x } else { 0 }` gives
+///   `0` at `0` whatever the step. Genuine singularities (`sqrt` or `ln` at
+///   `0`) give `±∞`. Pair the complex step with a real-arithmetic kink test.
 /// * **A step so small that the imaginary part goes subnormal loses
 ///   digits**, then everything: on the Squire & Trapp test function in `f64`
 ///   the relative error is `2e-16` down to `h = 1e-307`, `2e-14` at
@@ -573,41 +575,48 @@ impl<R: Real> Float for ComplexStep<R> {
     fn signum(self) -> Self {
         Self::real(self.re.signum())
     }
+    // At an exact tie (or |x| at 0) the branch is chosen by the imaginary
+    // parts, as the real function would choose it at x − h·v, just behind
+    // the seeded direction: with a positive step the result is the
+    // left-hand derivative, with a negative step the right-hand one. (A
+    // correct backward that routes a tie to one side then meets a
+    // disagreement at the first look, and the kink tests run.) `PartialOrd`
+    // compares real parts only, so code that branches with `<` is
+    // unaffected.
     fn abs(self) -> Self {
-        if self.re < R::zero() {
+        if self.re < R::zero() || (self.re == R::zero() && self.im > R::zero()) {
             -self
         } else {
             self
         }
     }
     fn max(self, other: Self) -> Self {
-        if other.re.is_nan() || self.re > other.re {
+        if other.re.is_nan() || self.re > other.re || (self.re == other.re && self.im <= other.im) {
             self
         } else {
             other
         }
     }
     fn min(self, other: Self) -> Self {
-        if other.re.is_nan() || self.re < other.re {
+        if other.re.is_nan() || self.re < other.re || (self.re == other.re && self.im >= other.im) {
             self
         } else {
             other
         }
     }
     fn clamp(self, min: Self, max: Self) -> Self {
-        if self.re < min.re {
-            min
-        } else if self.re > max.re {
-            max
-        } else {
+        if self.re.is_nan() {
             self
+        } else {
+            self.max(min).min(max)
         }
     }
     fn abs_sub(self, other: Self) -> Self {
-        if self.re <= other.re {
-            Self::zero()
+        let d = self - other;
+        if d.re.is_nan() {
+            d
         } else {
-            self - other
+            d.max(Self::zero())
         }
     }
 

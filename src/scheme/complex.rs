@@ -100,17 +100,15 @@ pub(crate) fn read(
 }
 
 /// Seeds `x_j + i·h` at the flat positions `targets` of tensor `slot`
-/// (each with its direction weight), runs `forward`, clears the seeds, and
-/// reads the derivative.
-pub(crate) fn evaluate(
+/// (each with its direction weight), runs `forward`, and clears the seeds:
+/// the complex outputs, `None` when the forward panicked.
+pub(crate) fn seeded(
     work: &mut Args<ComplexStep<f64>>,
     forward: &mut ComplexForward<'_>,
-    w: &[Vec<f64>],
     slot: usize,
     targets: &[(usize, f64)],
     h: f64,
-    amplification: &[f64],
-) -> Directional {
+) -> Option<Vec<Tensor<ComplexStep<f64>>>> {
     for &(j, v) in targets {
         work.all_mut()[slot].data_mut()[j].im = h * v;
     }
@@ -118,13 +116,48 @@ pub(crate) fn evaluate(
     for &(j, _) in targets {
         work.all_mut()[slot].data_mut()[j].im = 0.0;
     }
-    match y {
-        Some(y) => read(&y, w, h, amplification),
-        None => Directional {
-            value: f64::NAN,
-            ..Directional::default()
-        },
+    y
+}
+
+/// What the one-sided derivatives of φ = Σ wᵢyᵢ allow at a tie the complex
+/// step met: `plus` holds the outputs seeded with +h, `minus` with −h.
+///
+/// With ties broken by the imaginary parts (see `ComplexStep`'s `max`),
+/// Im yᵢ(x + ih)/h is one one-sided derivative of output i and
+/// Im yᵢ(x − ih)/(−h) the other. A backward may resolve the tie of each
+/// output its own way, so the values it can return fill the sum over
+/// outputs of wᵢ·[one side, other side] (in either order): returned as
+/// (low, high, rounding allowance). `None` when an output is not finite or
+/// the shapes differ.
+pub(crate) fn sides(
+    plus: &[Tensor<ComplexStep<f64>>],
+    minus: &[Tensor<ComplexStep<f64>>],
+    w: &[Vec<f64>],
+    h: f64,
+) -> Option<(f64, f64, f64)> {
+    let shapes_ok = plus.len() == w.len()
+        && minus.len() == w.len()
+        && plus
+            .iter()
+            .zip(minus)
+            .zip(w)
+            .all(|((r, l), w)| r.len() == w.len() && l.len() == w.len());
+    if !shapes_ok {
+        return None;
     }
+    let (mut low, mut high, mut terms) = (0.0, 0.0, 0.0);
+    for ((p, m), w) in plus.iter().zip(minus).zip(w) {
+        for ((p, m), &wi) in p.data().iter().zip(m.data()).zip(w) {
+            if !(p.im.is_finite() && m.im.is_finite()) {
+                return None;
+            }
+            let (a, b) = (wi * (p.im / h), wi * (m.im / -h));
+            low += a.min(b);
+            high += a.max(b);
+            terms += a.abs() + b.abs();
+        }
+    }
+    Some((low, high, 8.0 * f64::EPSILON * terms))
 }
 
 #[cfg(test)]
@@ -214,7 +247,7 @@ mod tests {
     }
 
     #[test]
-    fn evaluate_seeds_the_direction_runs_and_clears() {
+    fn seeded_moves_the_direction_runs_and_clears() {
         // Hive example: y = x₀·x₁ (brood warmth times humidity). Moving
         // (x₀, x₁) along (1, 0.5) at (2, 3): dy = x₁·1 + x₀·0.5 = 4.
         let mut work = Args::new(vec![tensor(vec![c(2.0, 0.0), c(3.0, 0.0)])], vec![]);
@@ -222,28 +255,57 @@ mod tests {
             let x = a.input(0).data();
             Some(vec![tensor(vec![x[0] * x[1]])])
         };
-        let d = evaluate(
-            &mut work,
-            &mut forward,
-            &[vec![1.0]],
-            0,
-            &[(0, 1.0), (1, 0.5)],
-            1e-20,
-            &[],
-        );
+        let y = seeded(&mut work, &mut forward, 0, &[(0, 1.0), (1, 0.5)], 1e-20);
+        let d = read(&y.expect("no panic"), &[vec![1.0]], 1e-20, &[]);
         assert!(d.finite && close(d.value, 4.0), "{d:?}");
         assert!(work.input(0).data().iter().all(|v| v.im == 0.0));
-        // A forward that panicked: NaN.
+        // A forward that panicked: nothing, and the seeds cleared.
         let mut panicked = |_: &Args<ComplexStep<f64>>| None;
-        let d = evaluate(
-            &mut work,
-            &mut panicked,
-            &[vec![1.0]],
-            0,
-            &[(0, 1.0)],
-            1e-20,
-            &[],
-        );
-        assert!(d.value.is_nan() && !d.finite, "{d:?}");
+        assert!(seeded(&mut work, &mut panicked, 0, &[(0, 1.0)], 1e-20).is_none());
+        assert!(work.input(0).data().iter().all(|v| v.im == 0.0));
+    }
+
+    #[test]
+    fn sides_sum_each_outputs_one_sided_interval() {
+        use num_traits::Float;
+        // Two frost-alarm outputs that both tie at x = 0.5: y₀ = max(x, 0.5)
+        // and y₁ = max(0.5, 2x − 0.5). Right-hand derivatives y₀′ = 1,
+        // y₁′ = 2; left-hand 0 and 0 (the constants win). With w = (1, −1)
+        // the outputs' intervals are [0, 1] and [−2, 0]: the sum [−2, 1].
+        let f = |x: ComplexStep<f64>| {
+            let half = ComplexStep::real(0.5);
+            vec![tensor(vec![
+                x.max(half),
+                half.max(x * ComplexStep::real(2.0) - half),
+            ])]
+        };
+        let h = 1e-20;
+        let plus = f(ComplexStep::seeded(0.5, h));
+        let minus = f(ComplexStep::seeded(0.5, -h));
+        let (lo, hi, noise) = sides(&plus, &minus, &[vec![1.0, -1.0]], h).expect("finite");
+        assert_eq!((lo, hi), (-2.0, 1.0));
+        assert!(noise > 0.0 && noise < 1e-14);
+        // Away from the tie both sides agree: an empty interval.
+        let plus = f(ComplexStep::seeded(0.7, h));
+        let minus = f(ComplexStep::seeded(0.7, -h));
+        let (lo, hi, _) = sides(&plus, &minus, &[vec![1.0, -1.0]], h).expect("finite");
+        assert!(close(lo, 1.0 - 2.0) && close(hi, lo), "{lo} {hi}");
+        // |x| at 0 and min at a tie: left-hand with +h, right-hand with −h.
+        let a = ComplexStep::seeded(0.0, h).abs();
+        let b = ComplexStep::seeded(0.0, -h).abs();
+        assert_eq!((a.im / h, b.im / -h), (-1.0, 1.0));
+        let m = ComplexStep::seeded(1.0, h).min(ComplexStep::real(1.0));
+        assert_eq!(m.im / h, 1.0);
+        let m = ComplexStep::seeded(1.0, -h).min(ComplexStep::real(1.0));
+        assert_eq!(m.im, 0.0);
+        // NaN still propagates through clamp and abs_sub.
+        let nan = ComplexStep::real(f64::NAN);
+        assert!(nan
+            .clamp(ComplexStep::real(0.0), ComplexStep::real(1.0))
+            .re
+            .is_nan());
+        assert!(nan.abs_sub(ComplexStep::real(0.0)).re.is_nan());
+        // Mismatched shapes: nothing.
+        assert!(sides(&plus, &minus, &[vec![1.0]], h).is_none());
     }
 }

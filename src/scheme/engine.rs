@@ -175,15 +175,27 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
     /// along this line: where φ(x+h) = φ(x−h) exactly while φ moved
     /// elsewhere, its stairs are at most as high as the smallest move seen,
     /// and any |φ′| up to (smallest move)/2h fits the flat difference; the
-    /// widest flat difference gives the tightest such limit. 0 when no
-    /// difference was flat, or nothing moved (a φ that never moves is
-    /// evidence of a zero derivative, not of rounding).
+    /// widest flat difference gives the tightest such limit. Where φ never
+    /// moved at all, the stairs are those of the outputs themselves (an
+    /// ulp each). 0 when no difference was flat.
     fn staircase_floor(&self) -> f64 {
-        if self.widest_flat > 0.0 && self.smallest_move.is_finite() {
-            self.smallest_move / self.widest_flat
-        } else {
-            0.0
+        if self.widest_flat <= 0.0 {
+            return 0.0;
         }
+        let stair = if self.smallest_move.is_finite() {
+            self.smallest_move
+        } else {
+            // φ never moved: every output kept its value, so each moved
+            // by less than its own ulp, and the derivative is below what
+            // the outputs can show over the widest flat width. A stray
+            // gradient of any size that matters still stands out.
+            self.w
+                .iter()
+                .zip(&self.work.base)
+                .map(|(w, y)| (w * y).abs() * U::EPS)
+                .sum::<f64>()
+        };
+        stair / self.widest_flat
     }
 
     /// Evaluates at x + t·v and leaves yᵢ(x + t·v) − yᵢ(x) in `work.diff`.
@@ -320,6 +332,7 @@ impl<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> Line for ArgLine<'_, U, F> {
             derivative: (p.delta - m.delta) / width,
             terms: terms / width,
             touched: p.touched.max(m.touched),
+            rounds_like: p.rounds_like.max(m.rounds_like),
             still,
             width,
             finite: p.finite && m.finite,
@@ -960,6 +973,23 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         targets: &[(usize, f64)],
         h: f64,
     ) -> Result<Directional, Error> {
+        Ok(match self.complex_outputs(slot, targets, h)? {
+            Some(y) => complex::read(&y, &self.w_per_output, h, &self.amplification),
+            None => Directional {
+                value: f64::NAN,
+                ..Directional::default()
+            },
+        })
+    }
+
+    /// The complex forward's outputs with `targets` seeded by step `h`; a
+    /// panic comes back as the error, naming the element and the step.
+    fn complex_outputs(
+        &mut self,
+        slot: usize,
+        targets: &[(usize, f64)],
+        h: f64,
+    ) -> Result<Option<Vec<Tensor<ComplexStep<f64>>>>, Error> {
         let (Some(generic), Some(work)) = (self.generic, self.complex.as_mut()) else {
             unreachable!("the complex step needs a generic forward")
         };
@@ -972,18 +1002,10 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
                 None
             }
         };
-        let d = complex::evaluate(
-            work,
-            &mut forward,
-            &self.w_per_output,
-            slot,
-            targets,
-            h,
-            &self.amplification,
-        );
+        let y = complex::seeded(work, &mut forward, slot, targets, h);
         self.evals += 1;
         match caught {
-            None => Ok(d),
+            None => Ok(y),
             Some(fault) => {
                 let x = self.own.args.all()[slot].data()[targets[0].0].as_f64();
                 let at = if targets.len() == 1 {
@@ -1003,6 +1025,40 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
                 Err(fault.into_error(self.layer_name, "forward (complex step)", at))
             }
         }
+    }
+
+    /// A tie at the point that only the complex step sees: two values
+    /// equal in the computed forward though not in exact arithmetic (two
+    /// differences that both round to 0 under a max), where real
+    /// differences find φ flat or smooth. Seeding +ih and −ih gives each
+    /// output's two one-sided derivatives (`ComplexStep` breaks exact ties
+    /// by the imaginary part); a kink at the point when they differ by more
+    /// than rounding. Two complex forwards.
+    pub(crate) fn complex_sides(
+        &mut self,
+        slot: usize,
+        j: usize,
+    ) -> Result<Option<KinkProbe>, Error> {
+        let x = self.own.args.all()[slot].data()[j].as_f64();
+        let h = complex::step_for(x);
+        let (Some(plus), Some(minus)) = (
+            self.complex_outputs(slot, &[(j, 1.0)], h)?,
+            self.complex_outputs(slot, &[(j, 1.0)], -h)?,
+        ) else {
+            return Ok(None);
+        };
+        Ok(
+            complex::sides(&plus, &minus, &self.w_per_output, h).and_then(
+                |(left, right, noise)| {
+                    (right - left > noise).then_some(KinkProbe {
+                        left,
+                        right,
+                        noise,
+                        at_point: true,
+                    })
+                },
+            ),
+        )
     }
 
     /// The complex-step estimate of element `j` of tensor `slot`.

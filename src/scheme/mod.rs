@@ -188,6 +188,10 @@ pub(crate) struct Pair {
     pub terms: f64,
     /// Σ|wᵢyᵢ| over the outputs that moved, larger of the two ends.
     pub touched: f64,
+    /// As `touched`, each output taken at least at the magnitude its
+    /// rounding acts on when the forward's running error bound exceeds the
+    /// output itself (`Sample::rounds_like`; 0 where not measured).
+    pub rounds_like: f64,
     /// The largest |wᵢyᵢ| among the outputs that did not move at either
     /// end: a derivative of such an output below an ulp over the width
     /// leaves no trace.
@@ -199,10 +203,10 @@ pub(crate) struct Pair {
 }
 
 impl Pair {
-    /// The rounding of this quotient: a few ulps of the outputs that moved,
-    /// over the width.
+    /// The rounding of this quotient: a few ulps of the outputs that moved
+    /// (of what their rounding acts on, where measured), over the width.
     pub fn rounding(&self, eps: f64) -> f64 {
-        4.0 * eps * self.touched / self.width
+        4.0 * eps * self.touched.max(self.rounds_like) / self.width
     }
 }
 
@@ -440,6 +444,7 @@ impl<F: FnMut(f64) -> f64> Line for ScalarLine<F> {
             derivative,
             terms: derivative.abs(),
             touched: p.touched.max(m.touched),
+            rounds_like: 0.0,
             still: if p.delta == 0.0 && m.delta == 0.0 {
                 self.at_x.abs()
             } else {
@@ -547,6 +552,7 @@ pub(crate) mod tests {
                     derivative: d,
                     terms: d.abs(),
                     touched: self.touched,
+                    rounds_like: 0.0,
                     still: self.still,
                     width: 2.0 * h,
                     finite: true,
