@@ -112,6 +112,12 @@ pub(crate) trait Prober {
     /// error bar widened by what the forward's own rounding does there
     /// (`None` when there is nothing to add).
     fn second_look(&mut self, j: usize, first: &Estimate) -> Result<Option<Estimate>, Error>;
+    /// The largest factor by which the forward's rounding at the point
+    /// exceeds a few ulps of its outputs, over all outputs (1 when not
+    /// measured).
+    fn widest_amplification(&self) -> f64 {
+        1.0
+    }
     /// The backward's own value for element `j` with the element moved a
     /// little to the left and to the right.
     fn backward_beside(&mut self, j: usize) -> Result<Option<(f64, f64)>, Error>;
@@ -147,11 +153,15 @@ pub(crate) fn compare(
     prober: &mut dyn Prober,
 ) -> Result<Compared, Error> {
     let mut elements = Vec::with_capacity(estimates.len());
+    // Per element, how much the forward's own rounding at the point
+    // exceeds a few ulps (for the joint test's allowance).
+    let mut amplifications = Vec::with_capacity(estimates.len());
     let mut corners_left = CORNER_PROBES;
     let (mut looks_left, mut confirmed) = (usize::MAX, 0);
     for (&j, est) in indices.iter().zip(estimates) {
         let analytic = grad.map_or(f64::NAN, |g| g.data()[j]);
         let mut e = judge(j, analytic, &est, tol, layer_eps);
+        let mut amplification = est.amplification;
         if !inputs[j].is_finite() {
             e.status = if analytic.is_finite() {
                 ElementStatus::NonFiniteInput
@@ -187,6 +197,7 @@ pub(crate) fn compare(
                 _ if looks_left > 0 => {
                     looks_left -= 1;
                     let mut wider = prober.second_look(j, &est)?.unwrap_or(est);
+                    amplification = amplification.max(wider.amplification);
                     wider.error += 2.0 * prober.backward_scatter(j, analytic)?;
                     e = judge(j, analytic, &wider, tol, layer_eps);
                     if e.status == ElementStatus::Disagrees {
@@ -206,6 +217,7 @@ pub(crate) fn compare(
             }
         }
         elements.push(e);
+        amplifications.push(amplification);
     }
     // Once a tensor has a kink, its agreeing elements are probed too: an
     // element that matched the reference by the luck of a tie is at a kink
@@ -223,7 +235,13 @@ pub(crate) fn compare(
             }
         }
     }
-    let joint_kink = joint_test(&elements, prober, tol, layer_eps)?;
+    // A tie's share may be 0 in the element's own estimate (no output
+    // moved along it): the whole layer's amplification stands in.
+    let widest = prober.widest_amplification();
+    for a in &mut amplifications {
+        *a = a.max(widest);
+    }
+    let joint_kink = joint_test(&elements, &amplifications, prober, tol, layer_eps)?;
     Ok(Compared {
         elements,
         joint_kink,
@@ -328,19 +346,22 @@ fn fits(analytic: f64, probe: &KinkProbe, bound: f64) -> bool {
 /// move did not change φ at all.
 ///
 /// Each element's share is allowed the backward's rounding at the size of
-/// its one-sided values, not only at the size of its own value and
+/// its one-sided values (times the forward's measured rounding
+/// amplification there), not only at the size of its own value and
 /// reference: an element that got 0 of a tie (and whose reference took
-/// that side too) still computes nothing exactly, while the element that
-/// got the whole gradient computed it with rounding.
+/// that side too) computes nothing exactly, while the element that got the
+/// whole gradient computed it with rounding.
 fn joint_test(
     elements: &[ElementCheck],
+    amplifications: &[f64],
     prober: &mut dyn Prober,
     tol: &Tolerance,
     layer_eps: f64,
 ) -> Result<Option<JointKink>, Error> {
     let kinked: Vec<(ElementCheck, KinkProbe)> = elements
         .iter()
-        .filter_map(|e| match e.status {
+        .zip(amplifications)
+        .filter_map(|(e, &amplification)| match e.status {
             ElementStatus::Kink { probe, .. } => {
                 let side = probe.left.abs().max(probe.right.abs());
                 let at_sides = Estimate {
@@ -351,7 +372,7 @@ fn joint_test(
                     evals: 0,
                     step: 0.0,
                     conclusive: e.decided,
-                    amplification: 1.0,
+                    amplification,
                 };
                 let bound = e.bound.max(tol.bound(&at_sides, e.analytic, layer_eps));
                 Some((ElementCheck { bound, ..*e }, probe))

@@ -803,6 +803,10 @@ impl<L: Forward + ?Sized> Prober for SlotProber<'_, '_, L> {
         Ok(own.max(all))
     }
 
+    fn widest_amplification(&self) -> f64 {
+        self.engine.widest_amplification()
+    }
+
     fn backward_beside(&mut self, j: usize) -> Result<Option<(f64, f64)>, Error> {
         let x = self.engine.value(self.slot, j);
         let h = 4.0 * f64::EPSILON.cbrt() * x.abs().max(f64::EPSILON.cbrt());

@@ -778,6 +778,13 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
         Ok(())
     }
 
+    /// The largest rounding amplification among the outputs (1 when not
+    /// measured): how many times a few ulps the layer's own forward is off
+    /// from the same forward in `f64`, at worst.
+    pub(crate) fn widest_amplification(&self) -> f64 {
+        self.amplification.iter().copied().fold(1.0, f64::max)
+    }
+
     /// The value of element `j` of tensor `slot`, in `f64`.
     pub(crate) fn value(&self, slot: usize, j: usize) -> f64 {
         self.own.args.all()[slot].data()[j].as_f64()
