@@ -141,7 +141,7 @@ pub use fn_layer::FnLayer;
 pub use harness::check_layer;
 #[doc(hidden)]
 pub use harness::{__Audited, __Entry, __OnOneThread, __OnThreads, __Pick, __assert_backward};
-pub use layer::{Args, Forward, GenericForward, Gradients, Layer};
+pub use layer::{Args, Forward, GenericBackward, GenericForward, Gradients, Layer, TangentRule};
 pub use report::{Report, Row, Verdict};
 pub use scalar::{Real, Scalar};
 pub use scheme::Scheme;
@@ -157,7 +157,7 @@ pub use tensor::Tensor;
 pub mod prelude {
     pub use crate::assert_backward;
     pub use crate::{
-        Args, Audit, FnLayer, Forward, GenericForward, Gradients, Layer, Real, Report, Scalar,
-        Scheme, Signature, Tensor,
+        Args, Audit, FnLayer, Forward, GenericBackward, GenericForward, Gradients, Layer, Real,
+        Report, Scalar, Scheme, Signature, TangentRule, Tensor,
     };
 }

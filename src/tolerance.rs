@@ -186,6 +186,26 @@ impl Tolerance {
         self.margin * (estimate.error + floor + resolution(layer_eps))
     }
 
+    /// The largest `|left − right|` accepted for an identity between two
+    /// sums that are equal in exact arithmetic (the adjoint identity, the
+    /// symmetry of a Hessian), given the estimated `rounding` of their
+    /// difference and the larger of their magnitudes, `size`.
+    ///
+    /// With fixed bounds, the fixed rule applies to the two sums as to an
+    /// element; otherwise `margin × (rounding + smallest normal)` of the
+    /// precision with epsilon `eps`. A non-finite input gives NaN, which
+    /// nothing passes.
+    pub fn identity_bound(&self, rounding: f64, size: f64, eps: f64) -> f64 {
+        if !(rounding.is_finite() && size.is_finite()) {
+            return f64::NAN;
+        }
+        if self.is_fixed() {
+            let abs = self.max_absolute.unwrap_or(0.0);
+            return abs.max(self.max_relative.unwrap_or(0.0) * size);
+        }
+        self.margin * (rounding + resolution(eps))
+    }
+
     /// `true` if the difference is within the bound. NaN never passes.
     pub fn accepts(diff: f64, bound: f64) -> bool {
         diff <= bound

@@ -31,7 +31,7 @@ fn cost_per_element(scheme: Scheme) -> u64 {
 
 /// Calls the layer, turning a panic (or an op's error an adapter carried
 /// out of the call) into an error that names the call.
-fn call<T>(layer: &str, call: &str, f: impl FnOnce() -> T) -> Result<T, Error> {
+pub(super) fn call<T>(layer: &str, call: &str, f: impl FnOnce() -> T) -> Result<T, Error> {
     guarded(f).map_err(|fault| fault.into_error(layer, call, String::new()))
 }
 
@@ -130,11 +130,7 @@ impl Audit {
             ..Evidence::default()
         };
 
-        let mut rng = rand::rngs::StdRng::seed_from_u64(self.seed);
-        let upstream: Vec<Tensor<L::Real>> = y0
-            .iter()
-            .map(|y| y.map(|_| L::Real::from_f64(rng.random_range(-1.0..1.0))))
-            .collect();
+        let upstream = super::rules::upstream_for(&y0, self.seed);
         let g1 = call(&name, "backward", || layer.backward(args, &upstream))?;
         let g2 = call(&name, "backward (second call)", || {
             layer.backward(args, &upstream)
@@ -272,11 +268,7 @@ impl Audit {
                 &mut notes,
             )?);
         }
-        // Failing rows first, then by relative error, worst first.
-        rows.sort_by(|a, b| {
-            (a.verdict.is_pass().cmp(&b.verdict.is_pass()))
-                .then(b.max_rel_error.total_cmp(&a.max_rel_error))
-        });
+        sort_rows(&mut rows);
         let forward_evals = engine.evals + 2;
         let backward_evals = engine.backward_evals + 2;
         let reference_precision = engine.precision_name().to_string();
@@ -288,6 +280,7 @@ impl Audit {
             notes,
             forward_evals,
             backward_evals,
+            rule_evals: 0,
             precision: L::Real::NAME.to_string(),
             reference_precision,
             tolerance: self.tolerance.clone(),
@@ -295,7 +288,7 @@ impl Audit {
         })
     }
 
-    fn choose_scheme(&self, name: &str, generic: bool) -> Result<Scheme, Error> {
+    pub(super) fn choose_scheme(&self, name: &str, generic: bool) -> Result<Scheme, Error> {
         match (self.scheme, generic) {
             (Some(Scheme::ComplexStep), false) => Err(Error::Setting {
                 setting: "scheme".into(),
@@ -530,6 +523,7 @@ impl Audit {
             _ => None,
         };
         Ok(Row {
+            check: crate::report::Check::Gradient,
             name: t.spec.name.clone(),
             role: t.spec.role,
             gradient_shape: t.grad.as_ref().map(|g| g.shape().to_vec()),
@@ -809,9 +803,17 @@ impl<L: Forward + ?Sized> Prober for SlotProber<'_, '_, L> {
     }
 }
 
+/// Failing rows first, then by relative error, worst first.
+pub(super) fn sort_rows(rows: &mut [Row]) {
+    rows.sort_by(|a, b| {
+        (a.verdict.is_pass().cmp(&b.verdict.is_pass()))
+            .then(b.max_rel_error.total_cmp(&a.max_rel_error))
+    });
+}
+
 /// More gradients than differentiable tensors: refused, naming both
 /// counts, rather than truncated (which would shift rows).
-fn check_gradient_count<T>(
+pub(super) fn check_gradient_count<T>(
     layer: &str,
     differentiable: &[(usize, &Slot)],
     g: &Gradients<T>,
@@ -851,7 +853,7 @@ pub(crate) fn sample(len: usize, max: Option<usize>, seed: u64, slot: usize) -> 
     all
 }
 
-fn short_type_name<L: ?Sized>() -> String {
+pub(super) fn short_type_name<L: ?Sized>() -> String {
     let full = std::any::type_name::<L>();
     let base = full.split('<').next().unwrap_or(full);
     let short = base.rsplit("::").next().unwrap_or(base);

@@ -75,6 +75,7 @@ mod norm;
 mod pool;
 pub mod programs;
 mod residual;
+mod rules;
 mod softmax;
 
 pub use attention::{Attention, AttentionBug};
@@ -89,6 +90,10 @@ pub use lstm::{LstmBug, LstmCell};
 pub use norm::{BatchNorm, BatchNormBug, LayerNorm, LayerNormBug, RmsNorm, RmsNormBug};
 pub use pool::{AvgPool2d, AvgPoolBug, MaxPool2d, MaxPoolBug};
 pub use residual::{Residual, ResidualBug};
+pub use rules::{
+    rule_cases, zero_bias, DenseRuleBug, Entry, GeluRuleBug, ResidualRuleBug, RuleCase,
+    SoftmaxRuleBug,
+};
 pub use softmax::{SoftmaxBug, SoftmaxCrossEntropy};
 
 /// Declares a layer's planted-bug enum: one variant per mistake, its
@@ -200,6 +205,10 @@ pub enum Kind {
     SharedKink,
     /// [`Diagnosis::BackwardAccumulates`].
     Accumulates,
+    /// [`Diagnosis::RuleAtFault`] naming this rule (the adjoint row).
+    RuleAtFault(crate::report::Culprit),
+    /// [`Diagnosis::NotSymmetric`] (the symmetry row).
+    NotSymmetric,
 }
 
 impl Kind {
@@ -233,6 +242,8 @@ impl Kind {
             (Kind::WrongFormula, Diagnosis::Partial { .. } | Diagnosis::WrongValues { .. }) => true,
             (Kind::SharedKink, Diagnosis::SharedKink { .. }) => true,
             (Kind::Accumulates, Diagnosis::BackwardAccumulates { .. }) => true,
+            (Kind::RuleAtFault(want), Diagnosis::RuleAtFault { culprit }) => *culprit == want,
+            (Kind::NotSymmetric, Diagnosis::NotSymmetric) => true,
             _ => false,
         }
     }
@@ -242,8 +253,9 @@ impl Kind {
     /// tensor's values), `transpose` (the right values in the wrong places:
     /// transposed, flipped, blocks permuted), `missing` (no gradient, or
     /// one never written), `partial` (only where an index condition holds),
-    /// `shape`, `formula` (a wrong formula, nothing simpler fits), `kink`
-    /// and `state` (a backward that accumulates).
+    /// `shape`, `formula` (a wrong formula, nothing simpler fits), `kink`,
+    /// `state` (a backward that accumulates), `rule` (the adjoint identity
+    /// names the wrong rule) and `symmetry` (the integrability test).
     ///
     /// ```
     /// use plumbline::gallery::Kind;
@@ -264,6 +276,8 @@ impl Kind {
             Kind::WrongFormula => "formula",
             Kind::SharedKink => "kink",
             Kind::Accumulates => "state",
+            Kind::RuleAtFault(_) => "rule",
+            Kind::NotSymmetric => "symmetry",
         }
     }
 }
