@@ -22,6 +22,7 @@ use crate::scheme::engine::guarded;
 use crate::scheme::{scalar_sample, Estimate, KinkProbe, Line, Pair, Sample, Scheme};
 use crate::signature::{Bindings, Role, Signature};
 use crate::tensor::{MultiIndex, Tensor};
+use crate::tolerance::ROUNDING_ULPS;
 
 /// Streams of the seeded directions, apart from the upstream's.
 const ALONG: u64 = 0x7A4E_6E17;
@@ -379,7 +380,13 @@ impl Audit {
         let (verdict, worst, diagnosis, errors) = match (id.left, id.right) {
             (Err(bad), _) | (_, Err(bad)) => (bad.verdict, None, Some(blame(bad.side)), (0.0, 0.0)),
             (Ok(l), Ok(r)) => {
-                let rounding = gamma(l.count + r.count, id.eps) * (l.terms + r.terms) + id.carried;
+                // The sums run in f64; each value summed carries at least
+                // a few ulps of the precision it was computed in, and the
+                // running error bounds of the formulas behind it.
+                let terms = l.terms + r.terms;
+                let rounding = gamma(l.count + r.count, f64::EPSILON) * terms
+                    + ROUNDING_ULPS * id.eps * terms
+                    + id.carried;
                 let size = l.value.abs().max(r.value.abs());
                 let bound = self.tolerance.identity_bound(rounding, size, id.eps);
                 let diff = (r.value - l.value).abs();
@@ -525,13 +532,14 @@ struct Identity {
     right: Result<Sum, Unformed>,
     /// Rounding the summed values carried in (running error bounds).
     carried: f64,
-    /// Epsilon of the arithmetic the values were computed in.
+    /// Epsilon of the arithmetic the summed values were computed in.
     eps: f64,
     scheme: Scheme,
 }
 
-/// γₙ = nε/(1 − nε) with u = ε/2 per operation (Higham 2002, Lemma 3.1):
-/// the relative bound of a sum of n products, each side computed once.
+/// γₙ = nε/(1 − nε) (Higham 2002, Lemma 3.1, with a unit roundoff of
+/// ε/2 per operation: this is generous by a factor of two): the relative
+/// bound of a sum of n products, here summed in `f64`.
 fn gamma(n: usize, eps: f64) -> f64 {
     let nu = (n as f64 + 1.0) * eps;
     if nu >= 1.0 {
