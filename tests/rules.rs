@@ -20,7 +20,11 @@ fn every_planted_rule_bug_fails_the_right_row_with_the_right_diagnosis() {
             let row = report.row(bug.expect.tensor);
             let right_check = row.is_some_and(|r| Some(r.check) == case.check);
             if !(outcome.detected && outcome.right_diagnosis && right_check) {
-                wrong.push(format!("{} seed {seed}: {}\n{report}", case.label(), outcome.said));
+                wrong.push(format!(
+                    "{} seed {seed}: {}\n{report}",
+                    case.label(),
+                    outcome.said
+                ));
             }
             count += 1;
         }
@@ -94,7 +98,10 @@ fn rows_say_which_check_they_hold_in_the_table_and_the_json() {
     assert_eq!(report.row("adjoint").unwrap().check, Check::Adjoint);
     let table = report.to_string();
     assert!(table.contains("rule audit of Dense<f64>"), "{table}");
-    assert!(table.contains("tangent y") && table.contains("adjoint"), "{table}");
+    assert!(
+        table.contains("tangent y") && table.contains("adjoint"),
+        "{table}"
+    );
     let json = plumbline::render::json(&report);
     let back: Report = serde_json::from_str(&json).unwrap();
     assert_eq!(back.row("adjoint").unwrap().check, Check::Adjoint);
@@ -102,7 +109,8 @@ fn rows_say_which_check_they_hold_in_the_table_and_the_json() {
     let plain = Audit::new()
         .run(&Dense::<f64>::new(None), &Dense::args(4))
         .unwrap();
-    let mut value: serde_json::Value = serde_json::from_str(&plumbline::render::json(&plain)).unwrap();
+    let mut value: serde_json::Value =
+        serde_json::from_str(&plumbline::render::json(&plain)).unwrap();
     for row in value["rows"].as_array_mut().unwrap() {
         row.as_object_mut().unwrap().remove("check");
     }
@@ -125,7 +133,10 @@ fn the_integrability_test_catches_what_the_plain_audit_misses_at_a_point() {
         assert_eq!(row.verdict, Verdict::Disagrees, "{second}");
         assert_eq!(row.diagnosis, Some(Diagnosis::NotSymmetric));
         // Away from b = 0 the plain audit sees it too.
-        assert!(!Audit::new().run(&layer, &Dense::args(seed)).unwrap().passed());
+        assert!(!Audit::new()
+            .run(&layer, &Dense::args(seed))
+            .unwrap()
+            .passed());
     }
 }
 
@@ -169,12 +180,14 @@ enum Flaw {
 }
 
 /// 2/√π, the factor of erf′ (NIST DLMF 7.10.1).
-const TWO_OVER_ROOT_PI: f64 = 1.128_379_167_095_512_6;
+const TWO_OVER_ROOT_PI: f64 = std::f64::consts::FRAC_2_SQRT_PI;
 
 impl Layer for FrostOdds {
     type Real = f64;
     fn signature(&self) -> Signature {
-        Signature::new().input("chill", "block").output("odds", "block")
+        Signature::new()
+            .input("chill", "block")
+            .output("odds", "block")
     }
     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
         self.backward_generic(a, up)
@@ -234,9 +247,10 @@ impl GenericBackward for FrostOdds {
                 f64::NAN
             }
         };
-        Some(Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |i| {
-            second(x[i]) * up[0][i] * along.input(0)[i]
-        })]))
+        Some(Gradients::from(vec![Tensor::from_fn(
+            x.shape().to_vec(),
+            |i| second(x[i]) * up[0][i] * along.input(0)[i],
+        )]))
     }
 }
 
@@ -247,26 +261,41 @@ fn frost_args() -> Args<f64> {
 #[test]
 fn the_complex_step_through_the_backward_gives_erfs_second_derivative() {
     let layer = FrostOdds { flaw: Flaw::None };
-    let report = Audit::new().run_second_order(&layer, &frost_args()).unwrap();
+    let report = Audit::new()
+        .run_second_order(&layer, &frost_args())
+        .unwrap();
     report.assert_passed();
     let row = report.row("chill").unwrap();
     assert_eq!(row.check, Check::HessianVector);
     assert!(row.max_rel_error < 1e-13, "{report}");
-    Audit::new().run_tangents(&layer, &frost_args()).unwrap().assert_passed();
+    Audit::new()
+        .run_tangents(&layer, &frost_args())
+        .unwrap()
+        .assert_passed();
 }
 
 #[test]
 fn misbehaving_rules_are_errors_or_failing_rows_never_panics() {
     let args = frost_args();
     let err = Audit::new()
-        .run_tangents(&FrostOdds { flaw: Flaw::ExtraTangent }, &args)
+        .run_tangents(
+            &FrostOdds {
+                flaw: Flaw::ExtraTangent,
+            },
+            &args,
+        )
         .unwrap_err();
     assert!(
         matches!(err, Error::OutputCount { ref call, found: 2, expected: 1, .. } if call == "jvp"),
         "{err}"
     );
     let report = Audit::new()
-        .run_tangents(&FrostOdds { flaw: Flaw::Reshaped }, &args)
+        .run_tangents(
+            &FrostOdds {
+                flaw: Flaw::Reshaped,
+            },
+            &args,
+        )
         .unwrap();
     assert_eq!(report.row("odds").unwrap().verdict, Verdict::WrongShape);
     assert_eq!(
@@ -283,7 +312,12 @@ fn misbehaving_rules_are_errors_or_failing_rows_never_panics() {
         "{err}"
     );
     let err = Audit::new()
-        .run_second_order(&FrostOdds { flaw: Flaw::GenericPanics }, &args)
+        .run_second_order(
+            &FrostOdds {
+                flaw: Flaw::GenericPanics,
+            },
+            &args,
+        )
         .unwrap_err();
     assert!(err.to_string().contains("backward_generic"), "{err}");
 }

@@ -61,7 +61,9 @@ impl Audit {
         let start = self.start(layer, args)?;
         let name = &start.name;
         let y0 = call(name, "forward", || layer.forward(args))?;
-        let bindings = start.sig.check_outputs(name, "forward", &start.bindings, &y0)?;
+        let bindings = start
+            .sig
+            .check_outputs(name, "forward", &start.bindings, &y0)?;
         let along = directions(&start.sig, args, self.seed ^ ALONG);
         let jv = call(name, "jvp", || layer.jvp(args, &along))?;
         let outputs = start.sig.outputs();
@@ -123,7 +125,13 @@ impl Audit {
             .map(|(e, u)| {
                 e.iter()
                     .zip(u.data())
-                    .map(|(e, u)| if exact { u.as_f64().abs() * e.error } else { 0.0 })
+                    .map(|(e, u)| {
+                        if exact {
+                            u.as_f64().abs() * e.error
+                        } else {
+                            0.0
+                        }
+                    })
                     .sum::<f64>()
             })
             .sum();
@@ -198,7 +206,9 @@ impl Audit {
         let start = self.start(layer, args)?;
         let name = &start.name;
         let y0 = call(name, "forward", || layer.forward(args))?;
-        let bindings = start.sig.check_outputs(name, "forward", &start.bindings, &y0)?;
+        let bindings = start
+            .sig
+            .check_outputs(name, "forward", &start.bindings, &y0)?;
         let upstream = upstream_for(&y0, self.seed);
         let along = directions(&start.sig, args, self.seed ^ ALONG);
         let across = directions(&start.sig, args, self.seed ^ ACROSS);
@@ -401,7 +411,12 @@ impl Audit {
                 if agrees {
                     (Verdict::Agrees, Some(worst), None, errors)
                 } else {
-                    (Verdict::Disagrees, Some(worst), Some(blame(Side::Values)), errors)
+                    (
+                        Verdict::Disagrees,
+                        Some(worst),
+                        Some(blame(Side::Values)),
+                        errors,
+                    )
                 }
             }
         };
@@ -572,7 +587,10 @@ impl Prober for Exact {
 }
 
 fn names_of<'a>(names: impl Iterator<Item = &'a str>) -> String {
-    names.map(|n| format!("`{n}`")).collect::<Vec<_>>().join(", ")
+    names
+        .map(|n| format!("`{n}`"))
+        .collect::<Vec<_>>()
+        .join(", ")
 }
 
 fn largest_abs<R: Real>(data: &[R]) -> f64 {
@@ -718,7 +736,11 @@ fn traced_f32<R: Real>(args: &Args<R>, along: &Args<R>) -> Args<Traced<f32>> {
 
 /// The imaginary step for moving every element along a direction.
 fn step_over<R: Real>(args: &Args<R>) -> f64 {
-    1e-20 * args.all().iter().fold(1.0_f64, |m, t| m.max(largest_abs(t.data())))
+    1e-20
+        * args
+            .all()
+            .iter()
+            .fold(1.0_f64, |m, t| m.max(largest_abs(t.data())))
 }
 
 /// Estimates of each output's tangent by the complex step (one complex
@@ -745,7 +767,10 @@ fn complex_tangents<R: Real>(
     evals.forward += 1;
     let rounding = tangent_rounding::<R>(generic, args, along);
     evals.forward += 1;
-    let scale = args.all().iter().fold(1.0_f64, |m, t| m.max(largest_abs(t.data())));
+    let scale = args
+        .all()
+        .iter()
+        .fold(1.0_f64, |m, t| m.max(largest_abs(t.data())));
     let shapes_ok = y.len() == y0.len() && y.iter().zip(y0).all(|(a, b)| a.len() == b.len());
     Ok(y0
         .iter()
@@ -836,6 +861,10 @@ fn real_tangents<L: Forward + ?Sized>(
         cache: Vec::new(),
         fault: None,
     };
+    let largest = args
+        .all()
+        .iter()
+        .fold(1.0_f64, |m, t| m.max(largest_abs(t.data())));
     let mut out = Vec::with_capacity(y0.len());
     for (k, y) in y0.iter().enumerate() {
         let mut row = Vec::with_capacity(y.len());
@@ -846,10 +875,19 @@ fn real_tangents<L: Forward + ?Sized>(
                 element: j,
                 at_x: y.data()[j].as_f64(),
             };
-            let e = match scheme {
+            let mut e = match scheme {
                 Scheme::Central => crate::scheme::central::estimate(&mut line),
                 _ => crate::scheme::ridders::estimate(&mut line),
             };
+            // What the comparison of a gradient row measures in its second
+            // look, assumed here: the output's own rounding and that of the
+            // moved arguments (every argument moves, each rounded to the
+            // layer's precision), over the smallest step the estimate
+            // relied on (about a sixteenth of its widest).
+            if e.step > 0.0 {
+                let noise = y.data()[j].as_f64().abs() + largest * e.value.abs();
+                e.error += 16.0 * L::Real::EPS * noise / e.step;
+            }
             if let Some((fault, t)) = mover.fault.take() {
                 return Err(fault.into_error(
                     name,
@@ -865,6 +903,10 @@ fn real_tangents<L: Forward + ?Sized>(
     Ok(out)
 }
 
+/// The outputs at one step along the tangent (by the step's bits), `None`
+/// where the forward panicked.
+type Step<R> = (u64, Option<Vec<Tensor<R>>>);
+
 /// Moves every argument along the tangent in place, runs the forward, and
 /// restores the arguments; outputs are kept per step for the other
 /// elements' lines.
@@ -873,7 +915,7 @@ struct Mover<'a, L: Forward + ?Sized> {
     base: &'a Args<L::Real>,
     along: &'a Args<L::Real>,
     work: Args<L::Real>,
-    cache: Vec<(u64, Option<Vec<Tensor<L::Real>>>)>,
+    cache: Vec<Step<L::Real>>,
     fault: Option<(crate::scheme::engine::Fault, f64)>,
 }
 
@@ -883,7 +925,13 @@ impl<L: Forward + ?Sized> Mover<'_, L> {
         let at = match self.cache.iter().position(|(b, _)| *b == key) {
             Some(p) => p,
             None => {
-                for ((w, b), v) in self.work.all_mut().iter_mut().zip(self.base.all()).zip(self.along.all()) {
+                for ((w, b), v) in self
+                    .work
+                    .all_mut()
+                    .iter_mut()
+                    .zip(self.base.all())
+                    .zip(self.along.all())
+                {
                     for ((w, b), v) in w.data_mut().iter_mut().zip(b.data()).zip(v.data()) {
                         *w = L::Real::from_f64(b.as_f64() + t * v.as_f64());
                     }

@@ -98,7 +98,8 @@ impl<R: Real> Layer for Dense<R> {
                     *b += *v;
                 }
                 let dw = tensor(dw.shape().to_vec(), buf.clone());
-                grads = Gradients::from(vec![grads.get(0).cloned(), Some(dw), grads.get(2).cloned()]);
+                grads =
+                    Gradients::from(vec![grads.get(0).cloned(), Some(dw), grads.get(2).cloned()]);
             }
         }
         grads
@@ -110,7 +111,12 @@ impl<R: Real> Dense<R> {
     /// between calls is added by [`Layer::backward`] only) and the planted
     /// rule bug [`DenseRuleBug::UpstreamShiftedByBias`](crate::gallery::DenseRuleBug).
     pub(crate) fn backward_with<T: Scalar>(&self, a: &Args<T>, up: &[Tensor<T>]) -> Gradients<T> {
-        let (x, w, b, g) = (a.input(0).data(), a.param(0).data(), a.param(1).data(), up[0].data());
+        let (x, w, b, g) = (
+            a.input(0).data(),
+            a.param(0).data(),
+            a.param(1).data(),
+            up[0].data(),
+        );
         let (n, i, o) = (
             a.input(0).shape()[0],
             a.input(0).shape()[1],

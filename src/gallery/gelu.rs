@@ -79,7 +79,10 @@ pub struct Gelu {
 impl Gelu {
     /// The layer, correct (`None`) or with a planted bug.
     pub fn new(bug: Option<GeluBug>) -> Self {
-        Gelu { bug, rule_bug: None }
+        Gelu {
+            bug,
+            rule_bug: None,
+        }
     }
 
     /// Random arguments: a 2×5 tensor with values in [-3, 3].

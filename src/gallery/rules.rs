@@ -8,7 +8,9 @@
 use super::gelu::gelu_derivative;
 use super::softmax::{label, softmax};
 use super::{affine, c, planted_bugs, tensor, Bug, Kind};
-use super::{Dense, DenseBug, Gelu, GeluBug, Residual, ResidualBug, SoftmaxBug, SoftmaxCrossEntropy};
+use super::{
+    Dense, DenseBug, Gelu, GeluBug, Residual, ResidualBug, SoftmaxBug, SoftmaxCrossEntropy,
+};
 use crate::audit::Audit;
 use crate::diagnosis::Culprit;
 use crate::error::Error;
@@ -73,8 +75,8 @@ impl<R: Real> TangentRule for Dense<R> {
     fn jvp(&self, a: &Args<R>, t: &Args<R>) -> Vec<Tensor<R>> {
         let (x, w) = (a.input(0), a.param(0));
         let (n, i, o) = (x.shape()[0], x.shape()[1], w.shape()[0]);
-        let bias = (self.rule_bug != Some(DenseRuleBug::TangentBiasMissing))
-            .then(|| t.param(1).data());
+        let bias =
+            (self.rule_bug != Some(DenseRuleBug::TangentBiasMissing)).then(|| t.param(1).data());
         let through_x = affine(t.input(0).data(), w.data(), bias, n, i, o);
         let through_w = affine(x.data(), t.param(0).data(), None, n, i, o);
         let sign = if self.rule_bug == Some(DenseRuleBug::TangentSignWeight) {
@@ -98,12 +100,7 @@ impl<R: Real> GenericBackward for Dense<R> {
         self.backward_with(a, up)
     }
 
-    fn hessian_vector(
-        &self,
-        a: &Args<R>,
-        up: &[Tensor<R>],
-        t: &Args<R>,
-    ) -> Option<Gradients<R>> {
+    fn hessian_vector(&self, a: &Args<R>, up: &[Tensor<R>], t: &Args<R>) -> Option<Gradients<R>> {
         let (x, w, g) = (a.input(0), a.param(0), &up[0]);
         let (n, i, o) = (x.shape()[0], x.shape()[1], w.shape()[0]);
         let (tx, tw) = (t.input(0), t.param(0));
@@ -118,7 +115,11 @@ impl<R: Real> GenericBackward for Dense<R> {
         let hw = Tensor::from_fn(vec![o, i], |ix| {
             sign * (0..n).fold(R::zero(), |s, m| s + g[[m, ix[0]]] * tx[[m, ix[1]]])
         });
-        Some(Gradients::from(vec![hx, hw, Tensor::full(vec![o], R::zero())]))
+        Some(Gradients::from(vec![
+            hx,
+            hw,
+            Tensor::full(vec![o], R::zero()),
+        ]))
     }
 }
 
@@ -166,7 +167,11 @@ impl GenericBackward for Gelu {
         let h = Tensor::from_fn(x.shape().to_vec(), |ix| {
             let x = x[ix];
             let pdf = (-x * x / 2.0).exp() / (2.0 * std::f32::consts::PI).sqrt();
-            let second = if missing { 2.0 * pdf } else { pdf * (2.0 - x * x) };
+            let second = if missing {
+                2.0 * pdf
+            } else {
+                pdf * (2.0 - x * x)
+            };
             g[ix] * second * tx[ix]
         });
         Some(Gradients::from(vec![h]))
@@ -188,8 +193,8 @@ impl<R: Real> TangentRule for Residual<R> {
         let (x, w, b) = (a.input(0), a.param(0), a.param(1));
         let (n, d) = (x.shape()[0], x.shape()[1]);
         let pre = affine(x.data(), w.data(), Some(b.data()), n, d, d);
-        let bias = (self.rule_bug != Some(ResidualRuleBug::TangentMissingBias))
-            .then(|| t.param(1).data());
+        let bias =
+            (self.rule_bug != Some(ResidualRuleBug::TangentMissingBias)).then(|| t.param(1).data());
         let through_x = affine(t.input(0).data(), w.data(), bias, n, d, d);
         let through_w = affine(x.data(), t.param(0).data(), None, n, d, d);
         let y = (0..n * d)
@@ -353,7 +358,12 @@ pub fn rule_cases() -> Vec<RuleCase> {
     }
     generic!("dense", Dense, Tangents, run_tangents);
     generic!("residual", Residual, Tangents, run_tangents);
-    generic!("softmax-cross-entropy", SoftmaxCrossEntropy, Tangents, run_tangents);
+    generic!(
+        "softmax-cross-entropy",
+        SoftmaxCrossEntropy,
+        Tangents,
+        run_tangents
+    );
     out.push(case("gelu", "f32", Tangents, None, |s, a| {
         a.run_tangents(&Gelu::new(None), &Gelu::args(s))
     }));
@@ -369,13 +379,19 @@ pub fn rule_cases() -> Vec<RuleCase> {
             _ => SecondOrder,
         };
         let info = bug.info();
-        out.push(case("dense", "f64", entry, Some((info, check_of(&info, entry))), move |s, a| {
-            let layer = Dense::<f64>::new(None).with_rule_bug(bug);
-            match entry {
-                Tangents => a.run_tangents(&layer, &Dense::args(s)),
-                _ => a.run_second_order(&layer, &zero_bias(Dense::args(s))),
-            }
-        }));
+        out.push(case(
+            "dense",
+            "f64",
+            entry,
+            Some((info, check_of(&info, entry))),
+            move |s, a| {
+                let layer = Dense::<f64>::new(None).with_rule_bug(bug);
+                match entry {
+                    Tangents => a.run_tangents(&layer, &Dense::args(s)),
+                    _ => a.run_second_order(&layer, &zero_bias(Dense::args(s))),
+                }
+            },
+        ));
     }
     for &bug in GeluRuleBug::ALL {
         let entry = match bug {
@@ -383,13 +399,19 @@ pub fn rule_cases() -> Vec<RuleCase> {
             GeluRuleBug::HessianMissingTerm => SecondOrder,
         };
         let info = bug.info();
-        out.push(case("gelu", "f32", entry, Some((info, check_of(&info, entry))), move |s, a| {
-            let layer = Gelu::new(None).with_rule_bug(bug);
-            match entry {
-                Tangents => a.run_tangents(&layer, &Gelu::args(s)),
-                _ => a.run_second_order(&layer, &Gelu::args(s)),
-            }
-        }));
+        out.push(case(
+            "gelu",
+            "f32",
+            entry,
+            Some((info, check_of(&info, entry))),
+            move |s, a| {
+                let layer = Gelu::new(None).with_rule_bug(bug);
+                match entry {
+                    Tangents => a.run_tangents(&layer, &Gelu::args(s)),
+                    _ => a.run_second_order(&layer, &Gelu::args(s)),
+                }
+            },
+        ));
     }
     for &bug in ResidualRuleBug::ALL {
         let entry = match bug {
@@ -397,43 +419,78 @@ pub fn rule_cases() -> Vec<RuleCase> {
             ResidualRuleBug::UpstreamShiftedByBias => SecondOrder,
         };
         let info = bug.info();
-        out.push(case("residual", "f64", entry, Some((info, check_of(&info, entry))), move |s, a| {
-            let layer = Residual::<f64>::new(None).with_rule_bug(bug);
-            match entry {
-                Tangents => a.run_tangents(&layer, &Residual::args(s)),
-                _ => a.run_second_order(&layer, &zero_bias(Residual::args(s))),
-            }
-        }));
+        out.push(case(
+            "residual",
+            "f64",
+            entry,
+            Some((info, check_of(&info, entry))),
+            move |s, a| {
+                let layer = Residual::<f64>::new(None).with_rule_bug(bug);
+                match entry {
+                    Tangents => a.run_tangents(&layer, &Residual::args(s)),
+                    _ => a.run_second_order(&layer, &zero_bias(Residual::args(s))),
+                }
+            },
+        ));
     }
     for &bug in SoftmaxRuleBug::ALL {
         let info = bug.info();
-        out.push(case("softmax-cross-entropy", "f64", Tangents, Some((info, check_of(&info, Tangents))), move |s, a| {
-            let layer = SoftmaxCrossEntropy::<f64>::new(None).with_rule_bug(bug);
-            a.run_tangents(&layer, &SoftmaxCrossEntropy::args(s))
-        }));
+        out.push(case(
+            "softmax-cross-entropy",
+            "f64",
+            Tangents,
+            Some((info, check_of(&info, Tangents))),
+            move |s, a| {
+                let layer = SoftmaxCrossEntropy::<f64>::new(None).with_rule_bug(bug);
+                a.run_tangents(&layer, &SoftmaxCrossEntropy::args(s))
+            },
+        ));
     }
 
     // Backward bugs against the correct tangent rule.
-    for &bug in DenseBug::ALL.iter().filter(|&&b| b != DenseBug::Accumulates) {
-        out.push(case("dense", "f64", Tangents, backward_bug(bug.info()), move |s, a| {
-            a.run_tangents(&Dense::<f64>::new(Some(bug)), &Dense::args(s))
-        }));
+    for &bug in DenseBug::ALL
+        .iter()
+        .filter(|&&b| b != DenseBug::Accumulates)
+    {
+        out.push(case(
+            "dense",
+            "f64",
+            Tangents,
+            backward_bug(bug.info()),
+            move |s, a| a.run_tangents(&Dense::<f64>::new(Some(bug)), &Dense::args(s)),
+        ));
     }
     for &bug in GeluBug::ALL {
-        out.push(case("gelu", "f32", Tangents, backward_bug(bug.info()), move |s, a| {
-            a.run_tangents(&Gelu::new(Some(bug)), &Gelu::args(s))
-        }));
+        out.push(case(
+            "gelu",
+            "f32",
+            Tangents,
+            backward_bug(bug.info()),
+            move |s, a| a.run_tangents(&Gelu::new(Some(bug)), &Gelu::args(s)),
+        ));
     }
     for &bug in ResidualBug::ALL {
-        out.push(case("residual", "f64", Tangents, backward_bug(bug.info()), move |s, a| {
-            a.run_tangents(&Residual::<f64>::new(Some(bug)), &Residual::args(s))
-        }));
+        out.push(case(
+            "residual",
+            "f64",
+            Tangents,
+            backward_bug(bug.info()),
+            move |s, a| a.run_tangents(&Residual::<f64>::new(Some(bug)), &Residual::args(s)),
+        ));
     }
     for &bug in SoftmaxBug::ALL {
-        out.push(case("softmax-cross-entropy", "f64", Tangents, backward_bug(bug.info()), move |s, a| {
-            a.run_tangents(&SoftmaxCrossEntropy::<f64>::new(Some(bug)), &SoftmaxCrossEntropy::args(s))
-        }));
+        out.push(case(
+            "softmax-cross-entropy",
+            "f64",
+            Tangents,
+            backward_bug(bug.info()),
+            move |s, a| {
+                a.run_tangents(
+                    &SoftmaxCrossEntropy::<f64>::new(Some(bug)),
+                    &SoftmaxCrossEntropy::args(s),
+                )
+            },
+        ));
     }
     out
 }
-

@@ -169,7 +169,11 @@ pub fn table(report: &Report, style: &Style) -> String {
         if failing == 0 {
             format!("all {} {} agree", report.rows.len(), unit(report))
         } else {
-            format!("{failing} of {} {} DISAGREE", report.rows.len(), unit(report))
+            format!(
+                "{failing} of {} {} DISAGREE",
+                report.rows.len(),
+                unit(report)
+            )
         }
     );
     for (i, row) in rows.iter().enumerate() {
@@ -334,7 +338,11 @@ pub(crate) fn failure_head(report: &Report) -> String {
             "the hand-written rules of `{}` fail {} {}: {}",
             report.layer,
             failing.len(),
-            if failing.len() == 1 { "check" } else { "checks" },
+            if failing.len() == 1 {
+                "check"
+            } else {
+                "checks"
+            },
             failing.join(", ")
         );
     } else {
@@ -374,7 +382,11 @@ pub(crate) fn markdown_linking(report: &Report, pictures: &[(String, String)]) -
         if failing == 0 {
             format!("all {} {} agree", report.rows.len(), unit(report))
         } else {
-            format!("{failing} of {} {} disagree", report.rows.len(), unit(report))
+            format!(
+                "{failing} of {} {} disagree",
+                report.rows.len(),
+                unit(report)
+            )
         }
     );
     let _ = writeln!(
