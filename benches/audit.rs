@@ -54,12 +54,16 @@ fn rules(c: &mut Criterion) {
     for (label, (n, i, o)) in [("small", (8, 16, 8)), ("large", (64, 128, 64))] {
         let args = dense_rule_args(n, i, o);
         let up = layer.forward(&args);
-        g.bench_with_input(BenchmarkId::new("forward_and_backward", label), &args, |b, a| {
-            b.iter(|| black_box(layer.backward(a, &layer.forward(a))))
-        });
-        g.bench_with_input(BenchmarkId::new("tangents_and_adjoint", label), &args, |b, a| {
-            b.iter(|| black_box(audit.run_tangents(&layer, a).unwrap()))
-        });
+        g.bench_with_input(
+            BenchmarkId::new("forward_and_backward", label),
+            &args,
+            |b, a| b.iter(|| black_box(layer.backward(a, &layer.forward(a)))),
+        );
+        g.bench_with_input(
+            BenchmarkId::new("tangents_and_adjoint", label),
+            &args,
+            |b, a| b.iter(|| black_box(audit.run_tangents(&layer, a).unwrap())),
+        );
         g.bench_with_input(BenchmarkId::new("second_order", label), &args, |b, a| {
             b.iter(|| black_box(audit.run_second_order(&layer, a).unwrap()))
         });

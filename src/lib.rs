@@ -23,6 +23,13 @@
 //! * [`Audit`] is a builder of settings whose [`run`](Audit::run) checks a
 //!   layer at given [`Args`] and returns a [`Report`]. The audit computes;
 //!   it never prints.
+//! * Other hand-written rules are optional traits: [`TangentRule`] (a
+//!   forward-mode rule, checked by [`Audit::run_tangents`] against the
+//!   forward's directional derivatives and against the backward by the
+//!   adjoint identity) and [`GenericBackward`] (a backward for any
+//!   [`Scalar`], which [`Audit::run_second_order`] differentiates by the
+//!   complex step to check a hand-written Hessian-vector product and the
+//!   symmetry of the backward's Jacobian).
 //! * [`Report`] holds one [`Row`] per tensor, worst first, with the worst
 //!   element, the bound that applied, a [`Verdict`] and a [`Diagnosis`].
 //!   `Display` renders the aligned table; [`Report::assert_passed`] panics

@@ -31,6 +31,29 @@
 //! | LSTM cell | [`LstmCell`](crate::gallery::LstmCell) | yes | [`LstmBug`](crate::gallery::LstmBug) |
 //! | bilinear layer | [`Bilinear`](crate::gallery::Bilinear) | yes | [`BilinearBug`](crate::gallery::BilinearBug) |
 //!
+//! Four layers also carry other hand-written rules, with their own planted
+//! bugs ([`rule_cases`](crate::gallery::rule_cases) lists them): forward-mode
+//! rules ([`TangentRule`](crate::TangentRule)) for `Dense`, `Gelu`,
+//! `Residual` and `SoftmaxCrossEntropy`
+//! ([`DenseRuleBug`](crate::gallery::DenseRuleBug),
+//! [`GeluRuleBug`](crate::gallery::GeluRuleBug),
+//! [`ResidualRuleBug`](crate::gallery::ResidualRuleBug),
+//! [`SoftmaxRuleBug`](crate::gallery::SoftmaxRuleBug)), and generic backwards
+//! ([`GenericBackward`](crate::GenericBackward)) for `Dense`, `Gelu` and
+//! `Residual`, the first two with a hand-written Hessian-vector product.
+//!
+//! ```
+//! use plumbline::gallery::{judge, rule_cases};
+//! use plumbline::Audit;
+//! let case = rule_cases()
+//!     .into_iter()
+//!     .find(|c| c.bug.is_some_and(|b| b.name == "upstream-shifted-by-bias"))
+//!     .unwrap();
+//! let report = case.audit(1, &Audit::new())?;
+//! assert!(judge(&case.bug.unwrap().expect, &report).right_diagnosis, "{report}");
+//! # Ok::<(), plumbline::Error>(())
+//! ```
+//!
 //! Generic layers implement [`GenericForward`](crate::GenericForward) for
 //! `Real = f32` and `Real = f64`, so the audit uses complex-step
 //! references. The three `f32`-only layers implement
