@@ -613,7 +613,7 @@ fn main() {
 /// bug in a rule (and every backward bug seen through the adjoint
 /// identity) with the row it should fail, and false alarms over `n_cases`
 /// seeds per correct case.
-fn rule_checks(n_cases: usize) -> Value {
+fn rule_checks(n_cases: u64) -> Value {
     use plumbline::gallery::rule_cases;
     let cases = rule_cases();
     println!();
@@ -647,7 +647,7 @@ fn rule_checks(n_cases: usize) -> Value {
     }
     let (mut audits, mut alarms) = (0, 0);
     for case in cases.iter().filter(|c| c.bug.is_none()) {
-        for seed in 0..n_cases as u64 {
+        for seed in 0..n_cases {
             let report = case
                 .audit(seed, &Audit::new().seed(seed))
                 .unwrap_or_else(|e| panic!("{}: {e}", case.label()));

@@ -8,7 +8,7 @@
 
 use rand::{RngExt, SeedableRng};
 
-use super::run::{call, check_gradient_count, short_type_name, sort_rows};
+use super::run::{assemble, call, check_gradient_count, short_type_name, sort_rows, RowParts};
 use super::Audit;
 use crate::compare::{self, relative_error, Compared, Prober};
 use crate::diagnosis::summary::{summarize, RowFacts};
@@ -353,34 +353,20 @@ impl Audit {
             joint_kink.as_ref(),
             evidence,
         );
-        Ok(Row {
+        Ok(assemble(RowParts {
             check: c.check,
             name: c.name.to_string(),
             role: c.role,
             gradient_shape: c.analytic.as_ref().map(|g| g.shape().to_vec()),
             scheme: c.scheme,
-            checked: elements.len(),
-            total: c.shape.iter().product(),
-            failing: s.failing,
-            kinks: s.kinks,
-            unchecked: s.unchecked,
-            wide: s.wide,
-            worst: s.worst.map(|k| Worst {
-                index: MultiIndex::from_flat(&c.shape, elements[k].index),
-                analytic: elements[k].analytic,
-                numeric: elements[k].numeric,
-                bound: elements[k].bound,
-            }),
-            max_abs_error: s.max_abs_error,
-            max_rel_error: s.max_rel_error,
-            verdict: s.verdict,
+            summary: s,
             joint_kink,
             diagnosis,
             screen: None,
             step_sweep: None,
             shape: c.shape,
             elements,
-        })
+        }))
     }
 
     /// The row of an identity between two sums that are equal in exact
@@ -698,40 +684,41 @@ fn as_f64<R: Real>(data: &[R]) -> Vec<f64> {
     data.iter().map(|v| v.as_f64()).collect()
 }
 
+/// The arguments as numbers of another kind, each made from its value and
+/// its tangent's (`make(x, v)`).
+fn seeded_with<R: Real, U: Copy>(
+    args: &Args<R>,
+    along: &Args<R>,
+    make: impl Fn(R, R) -> U,
+) -> Args<U> {
+    let mut out = args.map(|x| make(x, R::zero()));
+    for ((o, x), v) in out.all_mut().iter_mut().zip(args.all()).zip(along.all()) {
+        for ((o, &x), &v) in o.data_mut().iter_mut().zip(x.data()).zip(v.data()) {
+            *o = make(x, v);
+        }
+    }
+    out
+}
+
 /// Complex-step numbers x + i·h·v over `f64`.
 fn seeded<R: Real>(args: &Args<R>, along: &Args<R>, h: f64) -> Args<ComplexStep<f64>> {
-    let mut work = args.map(|x| ComplexStep::real(x.as_f64()));
-    for (t, v) in work.all_mut().iter_mut().zip(along.all()) {
-        for (c, d) in t.data_mut().iter_mut().zip(v.data()) {
-            c.im = h * d.as_f64();
-        }
-    }
-    work
+    seeded_with(args, along, |x, v| {
+        ComplexStep::new(x.as_f64(), h * v.as_f64())
+    })
 }
 
-/// Dual numbers with running error bounds, seeded along `along`, in `f64`
-/// or in `f32`.
+/// Dual numbers with running error bounds, seeded along `along`, in `f64`.
 fn traced_f64<R: Real>(args: &Args<R>, along: &Args<R>) -> Args<Traced<f64>> {
-    let mut work = args.map(|x| Traced::input(x.as_f64(), 0.0));
-    for (t, v) in work.all_mut().iter_mut().zip(along.all()) {
-        for (c, d) in t.data_mut().iter_mut().zip(v.data()) {
-            c.d = d.as_f64();
-        }
-    }
-    work
+    seeded_with(args, along, |x, v| Traced::input(x.as_f64(), v.as_f64()))
 }
 
-// `Real` is sealed to f32 and f64: these conversions are used for f32
-// layers only, where they are exact.
+/// The same in `f32`. `Real` is sealed to f32 and f64: used for f32
+/// layers only, where the conversions are exact.
 #[allow(clippy::cast_possible_truncation)]
 fn traced_f32<R: Real>(args: &Args<R>, along: &Args<R>) -> Args<Traced<f32>> {
-    let mut work = args.map(|x| Traced::input(x.as_f64() as f32, 0.0));
-    for (t, v) in work.all_mut().iter_mut().zip(along.all()) {
-        for (c, d) in t.data_mut().iter_mut().zip(v.data()) {
-            c.d = d.as_f64() as f32;
-        }
-    }
-    work
+    seeded_with(args, along, |x, v| {
+        Traced::input(x.as_f64() as f32, v.as_f64() as f32)
+    })
 }
 
 /// The imaginary step for moving every element along a direction.

@@ -522,34 +522,70 @@ impl Audit {
             }
             _ => None,
         };
-        Ok(Row {
+        Ok(assemble(RowParts {
             check: crate::report::Check::Gradient,
             name: t.spec.name.clone(),
             role: t.spec.role,
             gradient_shape: t.grad.as_ref().map(|g| g.shape().to_vec()),
             scheme: t.scheme,
-            checked: elements.len(),
-            total: shape.iter().product(),
-            failing: s.failing,
-            kinks: s.kinks,
-            unchecked: s.unchecked,
-            wide: s.wide,
-            worst: s.worst.map(|k| Worst {
-                index: MultiIndex::from_flat(&shape, elements[k].index),
-                analytic: elements[k].analytic,
-                numeric: elements[k].numeric,
-                bound: elements[k].bound,
-            }),
-            max_abs_error: s.max_abs_error,
-            max_rel_error: s.max_rel_error,
-            verdict: s.verdict,
+            summary: s,
             joint_kink,
             diagnosis,
             screen: t.screen,
             step_sweep,
             shape,
             elements,
-        })
+        }))
+    }
+}
+
+/// What a row of element comparisons is built from.
+pub(super) struct RowParts {
+    pub check: crate::report::Check,
+    pub name: String,
+    pub role: Role,
+    pub gradient_shape: Option<Vec<usize>>,
+    pub scheme: Scheme,
+    pub summary: crate::diagnosis::summary::Summary,
+    pub joint_kink: Option<compare::JointKink>,
+    pub diagnosis: Option<crate::diagnosis::Diagnosis>,
+    pub screen: Option<Screen>,
+    pub step_sweep: Option<StepSweep>,
+    pub shape: Vec<usize>,
+    pub elements: Vec<compare::ElementCheck>,
+}
+
+/// A row of element comparisons: counts and figures from the summary,
+/// the worst element located in the tensor.
+pub(super) fn assemble(p: RowParts) -> Row {
+    let s = p.summary;
+    Row {
+        check: p.check,
+        name: p.name,
+        role: p.role,
+        gradient_shape: p.gradient_shape,
+        scheme: p.scheme,
+        checked: p.elements.len(),
+        total: p.shape.iter().product(),
+        failing: s.failing,
+        kinks: s.kinks,
+        unchecked: s.unchecked,
+        wide: s.wide,
+        worst: s.worst.map(|k| Worst {
+            index: MultiIndex::from_flat(&p.shape, p.elements[k].index),
+            analytic: p.elements[k].analytic,
+            numeric: p.elements[k].numeric,
+            bound: p.elements[k].bound,
+        }),
+        max_abs_error: s.max_abs_error,
+        max_rel_error: s.max_rel_error,
+        verdict: s.verdict,
+        joint_kink: p.joint_kink,
+        diagnosis: p.diagnosis,
+        screen: p.screen,
+        step_sweep: p.step_sweep,
+        shape: p.shape,
+        elements: p.elements,
     }
 }
 
