@@ -50,6 +50,10 @@ impl Audit {
     /// names the rule at fault: the backward when every tangent row
     /// agrees with the forward, the tangent rule when one does not.
     ///
+    /// Kinks are not probed: at a point where the forward is not
+    /// differentiable along v (a tie of a max, a ReLU at 0), the complex
+    /// step takes one side and a rule may take another.
+    ///
     /// Errors as [`run`](Audit::run) does, and when `jvp` returns more
     /// tangents than the layer has outputs ([`Error::OutputCount`]); a
     /// tangent of the wrong shape, or left out, is a failing row.
