@@ -8,14 +8,14 @@
 
 use rand::{RngExt, SeedableRng};
 
-use super::run::{assemble, call, check_gradient_count, short_type_name, sort_rows, RowParts};
+use super::run::{assemble, call, check_gradient_count, sort_rows, RowParts, Start};
 use super::Audit;
 use crate::compare::{self, relative_error, Compared, Prober};
 use crate::diagnosis::summary::{summarize, RowFacts};
 use crate::diagnosis::{diagnose, Culprit, Diagnosis, Evidence};
 use crate::error::Error;
 use crate::layer::sealed::Reference;
-use crate::layer::{Args, Forward, GenericBackward, Gradients, TangentRule};
+use crate::layer::{Args, Forward, GenericBackward, TangentRule};
 use crate::report::{Check, Report, Row, Verdict, Worst};
 use crate::scalar::{ComplexStep, Real, Traced};
 use crate::scheme::engine::guarded;
@@ -62,12 +62,8 @@ impl Audit {
         layer: &L,
         args: &Args<L::Real>,
     ) -> Result<Report, Error> {
-        let start = self.start(layer, args)?;
-        let name = &start.name;
-        let y0 = call(name, "forward", || layer.forward(args))?;
-        let bindings = start
-            .sig
-            .check_outputs(name, "forward", &start.bindings, &y0)?;
+        let (start, y0) = self.begin(layer, args)?;
+        let (name, bindings) = (&start.name, &start.bindings);
         let along = directions(&start.sig, args, self.seed ^ ALONG);
         let jv = call(name, "jvp", || layer.jvp(args, &along))?;
         let outputs = start.sig.outputs();
@@ -91,7 +87,7 @@ impl Audit {
             Some(g) => complex_tangents(g, name, args, &along, &y0, &mut evals)?,
             None => real_tangents(layer, name, args, &along, &y0, scheme, &mut evals)?,
         };
-        let evidence = evidence_of(&start.sig, &bindings, args);
+        let evidence = evidence_of(&start.sig, bindings, args);
         let mut rows = Vec::with_capacity(outputs.len() + 1);
         for (k, slot) in outputs.iter().enumerate() {
             let jk = jv.get(k).map(|t| t.map(|v| v.as_f64()));
@@ -117,8 +113,14 @@ impl Audit {
         evals.backward += 1;
         let differentiable = differentiable(&start.sig);
         check_gradient_count(name, &differentiable_slots(&start.sig), &g)?;
-        let tangent_side = pair_up(&upstream, &jv);
-        let backward_side = pair_up_gradients(&g, &differentiable, &along);
+        let tangent_side = pair_up(
+            upstream.iter().enumerate().map(|(k, u)| (jv.get(k), u)),
+            Side::Tangent,
+        );
+        let backward_side = pair_up(
+            (differentiable.iter().enumerate()).map(|(d, &slot)| (g.get(d), &along.all()[slot])),
+            Side::Backward,
+        );
         // The tangents' own rounding along the forward's formulas (the
         // exact reference's error bars), weighted by |u|; a real scheme's
         // error bar is its truncation, which the identity does not have.
@@ -207,12 +209,8 @@ impl Audit {
         layer: &L,
         args: &Args<L::Real>,
     ) -> Result<Report, Error> {
-        let start = self.start(layer, args)?;
-        let name = &start.name;
-        let y0 = call(name, "forward", || layer.forward(args))?;
-        let bindings = start
-            .sig
-            .check_outputs(name, "forward", &start.bindings, &y0)?;
+        let (start, y0) = self.begin(layer, args)?;
+        let (name, bindings) = (&start.name, &start.bindings);
         let upstream = upstream_for(&y0, self.seed);
         let along = directions(&start.sig, args, self.seed ^ ALONG);
         let across = directions(&start.sig, args, self.seed ^ ACROSS);
@@ -256,7 +254,7 @@ impl Audit {
                 } else {
                     None
                 };
-                let evidence = evidence_of(&start.sig, &bindings, args);
+                let evidence = evidence_of(&start.sig, bindings, args);
                 for (d, &(slot, spec)) in slots.iter().enumerate() {
                     let x = &args.all()[slot];
                     let largest = largest_abs(x.data());
@@ -305,20 +303,21 @@ impl Audit {
         ))
     }
 
-    /// Settings, name, signature and argument binding: the start every
-    /// check shares.
-    fn start<L: Forward + ?Sized>(&self, layer: &L, args: &Args<L::Real>) -> Result<Start, Error> {
-        self.validate()?;
-        let name = (self.name.clone())
-            .or_else(|| layer.shown_name())
-            .unwrap_or_else(short_type_name::<L>);
-        let sig = call(&name, "signature", || layer.signature())?;
-        let bindings = sig.bind(&name, args)?;
-        Ok(Start {
-            name,
-            sig,
-            bindings,
-        })
+    /// The start of a check of other rules: settings, name, signature and
+    /// binding, then one forward for the outputs (their named dims joining
+    /// the bindings).
+    fn begin<L: Forward + ?Sized>(
+        &self,
+        layer: &L,
+        args: &Args<L::Real>,
+    ) -> Result<Begun<L::Real>, Error> {
+        let mut start = self.start(layer, args)?;
+        let name = &start.name;
+        let y0 = call(name, "forward", || layer.forward(args))?;
+        start.bindings = start
+            .sig
+            .check_outputs(name, "forward", &start.bindings, &y0)?;
+        Ok((start, y0))
     }
 
     /// A row of element comparisons, judged, summarised and diagnosed as a
@@ -467,11 +466,8 @@ impl Audit {
     }
 }
 
-struct Start {
-    name: String,
-    sig: Signature,
-    bindings: Bindings,
-}
+/// The start of a check and the outputs at the point.
+type Begun<R> = (Start, Vec<Tensor<R>>);
 
 /// Evaluations spent by a check.
 struct Evals {
@@ -635,51 +631,24 @@ fn evidence_of<R: Real>(sig: &Signature, bindings: &Bindings, args: &Args<R>) ->
     }
 }
 
-/// ⟨u, J v⟩ from the tangents, or which tangent is missing or misshapen.
-fn pair_up<R: Real>(upstream: &[Tensor<R>], jv: &[Tensor<R>]) -> Result<Sum, Unformed> {
-    let mut sum = Sum::default();
-    for (k, u) in upstream.iter().enumerate() {
-        let Some(t) = jv.get(k) else {
-            return Err(Unformed {
-                side: Side::Tangent,
-                verdict: Verdict::Missing,
-            });
-        };
-        if t.shape() != u.shape() {
-            return Err(Unformed {
-                side: Side::Tangent,
-                verdict: Verdict::WrongShape,
-            });
-        }
-        let (a, b) = (as_f64(u.data()), as_f64(t.data()));
-        sum.add(&a, &b);
-    }
-    Ok(sum)
-}
-
-/// ⟨Jᵀu, v⟩ from the gradients, or which gradient is missing or
-/// misshapen.
-fn pair_up_gradients<R: Real>(
-    g: &Gradients<R>,
-    differentiable: &[usize],
-    along: &Args<R>,
+/// Σ over tensor pairs of ⟨rule's tensor, other⟩ (⟨u, J v⟩ from the
+/// tangents, ⟨Jᵀu, v⟩ from the gradients), or which rule's tensor is
+/// missing or misshapen.
+fn pair_up<'a, R: Real>(
+    pairs: impl Iterator<Item = (Option<&'a Tensor<R>>, &'a Tensor<R>)>,
+    side: Side,
 ) -> Result<Sum, Unformed> {
     let mut sum = Sum::default();
-    for (d, &slot) in differentiable.iter().enumerate() {
-        let v = &along.all()[slot];
-        let Some(t) = g.get(d) else {
-            return Err(Unformed {
-                side: Side::Backward,
-                verdict: Verdict::Missing,
-            });
+    for (rule, other) in pairs {
+        let verdict = match rule {
+            None => Verdict::Missing,
+            Some(t) if t.shape() != other.shape() => Verdict::WrongShape,
+            Some(t) => {
+                sum.add(&as_f64(t.data()), &as_f64(other.data()));
+                continue;
+            }
         };
-        if t.shape() != v.shape() {
-            return Err(Unformed {
-                side: Side::Backward,
-                verdict: Verdict::WrongShape,
-            });
-        }
-        sum.add(&as_f64(t.data()), &as_f64(v.data()));
+        return Err(Unformed { side, verdict });
     }
     Ok(sum)
 }

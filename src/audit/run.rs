@@ -106,12 +106,11 @@ impl Audit {
         args: &Args<L::Real>,
         workers: Option<&dyn Workers<L::Real>>,
     ) -> Result<Report, Error> {
-        self.validate()?;
-        let name = (self.name.clone())
-            .or_else(|| layer.shown_name())
-            .unwrap_or_else(short_type_name::<L>);
-        let sig = call(&name, "signature", || layer.signature())?;
-        let bindings = sig.bind(&name, args)?;
+        let Start {
+            name,
+            sig,
+            bindings,
+        } = self.start(layer, args)?;
         let generic = layer.reference().is_some() && !self.own_precision;
         let scheme = self.choose_scheme(&name, generic)?;
 
@@ -285,6 +284,26 @@ impl Audit {
             reference_precision,
             tolerance: self.tolerance.clone(),
             kinks_fail: self.kinks_fail,
+        })
+    }
+
+    /// Settings, name, signature and argument binding: the start every
+    /// audit and check shares.
+    pub(super) fn start<L: Forward + ?Sized>(
+        &self,
+        layer: &L,
+        args: &Args<L::Real>,
+    ) -> Result<Start, Error> {
+        self.validate()?;
+        let name = (self.name.clone())
+            .or_else(|| layer.shown_name())
+            .unwrap_or_else(short_type_name::<L>);
+        let sig = call(&name, "signature", || layer.signature())?;
+        let bindings = sig.bind(&name, args)?;
+        Ok(Start {
+            name,
+            sig,
+            bindings,
         })
     }
 
@@ -537,6 +556,13 @@ impl Audit {
             elements,
         }))
     }
+}
+
+/// The layer's name, signature and argument bindings.
+pub(super) struct Start {
+    pub name: String,
+    pub sig: Signature,
+    pub bindings: crate::signature::Bindings,
 }
 
 /// What a row of element comparisons is built from.
@@ -889,7 +915,7 @@ pub(crate) fn sample(len: usize, max: Option<usize>, seed: u64, slot: usize) -> 
     all
 }
 
-pub(super) fn short_type_name<L: ?Sized>() -> String {
+fn short_type_name<L: ?Sized>() -> String {
     let full = std::any::type_name::<L>();
     let base = full.split('<').next().unwrap_or(full);
     let short = base.rsplit("::").next().unwrap_or(base);

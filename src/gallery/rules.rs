@@ -327,14 +327,42 @@ fn check_of(bug: &Bug, entry: Entry) -> Check {
     }
 }
 
+/// A planted rule bug checked through `entry`: what it should fail.
+fn in_rule(b: Bug, entry: Entry) -> (Bug, Check, Entry) {
+    (b, check_of(&b, entry), entry)
+}
+
 /// A backward bug seen through the adjoint identity: the tangent rule is
 /// right, so the adjoint row must blame the backward.
-fn backward_bug(b: Bug) -> Option<(Bug, Check)> {
+fn in_backward(b: Bug) -> (Bug, Check, Entry) {
     let expect = super::Expect {
         tensor: "adjoint",
         kind: Kind::RuleAtFault(Culprit::Backward),
     };
-    Some((Bug { expect, ..b }, Check::Adjoint))
+    (Bug { expect, ..b }, Check::Adjoint, Entry::Tangents)
+}
+
+type Run<B> = fn(B, Entry, u64, &Audit) -> Result<Report, Error>;
+
+/// One case per planted bug of `bugs`, described by `describe` and run by
+/// `run`.
+fn plant<B: Copy + Send + Sync + 'static>(
+    out: &mut Vec<RuleCase>,
+    (layer, precision): (&'static str, &'static str),
+    bugs: &[B],
+    describe: fn(B) -> (Bug, Check, Entry),
+    run: Run<B>,
+) {
+    for &bug in bugs {
+        let (info, check, entry) = describe(bug);
+        out.push(case(
+            layer,
+            precision,
+            entry,
+            Some((info, check)),
+            move |s, a| run(bug, entry, s, a),
+        ));
+    }
 }
 
 /// Every rule case: the four layers with tangent rules (correct in `f64`
@@ -342,7 +370,8 @@ fn backward_bug(b: Bug) -> Option<(Bug, Check)> {
 /// each planted backward bug (but the one that accumulates, which one
 /// backward call cannot see) against the correct tangent rule, and the
 /// three layers with generic backwards, correct and with each planted
-/// second-order bug.
+/// second-order bug (the non-symmetric backwards at a zero bias, where
+/// their extra term vanishes from the gradient).
 pub fn rule_cases() -> Vec<RuleCase> {
     use Entry::{SecondOrder, Tangents};
     let mut out = Vec::new();
@@ -373,124 +402,107 @@ pub fn rule_cases() -> Vec<RuleCase> {
         a.run_second_order(&Gelu::new(None), &Gelu::args(s))
     }));
 
-    for &bug in DenseRuleBug::ALL {
-        let entry = match bug {
-            DenseRuleBug::TangentSignWeight | DenseRuleBug::TangentBiasMissing => Tangents,
-            _ => SecondOrder,
-        };
-        let info = bug.info();
-        out.push(case(
-            "dense",
-            "f64",
-            entry,
-            Some((info, check_of(&info, entry))),
-            move |s, a| {
-                let layer = Dense::<f64>::new(None).with_rule_bug(bug);
-                match entry {
-                    Tangents => a.run_tangents(&layer, &Dense::args(s)),
-                    _ => a.run_second_order(&layer, &zero_bias(Dense::args(s))),
-                }
-            },
-        ));
-    }
-    for &bug in GeluRuleBug::ALL {
-        let entry = match bug {
-            GeluRuleBug::TangentSignFlipped => Tangents,
-            GeluRuleBug::HessianMissingTerm => SecondOrder,
-        };
-        let info = bug.info();
-        out.push(case(
-            "gelu",
-            "f32",
-            entry,
-            Some((info, check_of(&info, entry))),
-            move |s, a| {
-                let layer = Gelu::new(None).with_rule_bug(bug);
-                match entry {
-                    Tangents => a.run_tangents(&layer, &Gelu::args(s)),
-                    _ => a.run_second_order(&layer, &Gelu::args(s)),
-                }
-            },
-        ));
-    }
-    for &bug in ResidualRuleBug::ALL {
-        let entry = match bug {
-            ResidualRuleBug::TangentMissingBias => Tangents,
-            ResidualRuleBug::UpstreamShiftedByBias => SecondOrder,
-        };
-        let info = bug.info();
-        out.push(case(
-            "residual",
-            "f64",
-            entry,
-            Some((info, check_of(&info, entry))),
-            move |s, a| {
-                let layer = Residual::<f64>::new(None).with_rule_bug(bug);
-                match entry {
-                    Tangents => a.run_tangents(&layer, &Residual::args(s)),
-                    _ => a.run_second_order(&layer, &zero_bias(Residual::args(s))),
-                }
-            },
-        ));
-    }
-    for &bug in SoftmaxRuleBug::ALL {
-        let info = bug.info();
-        out.push(case(
-            "softmax-cross-entropy",
-            "f64",
-            Tangents,
-            Some((info, check_of(&info, Tangents))),
-            move |s, a| {
-                let layer = SoftmaxCrossEntropy::<f64>::new(None).with_rule_bug(bug);
-                a.run_tangents(&layer, &SoftmaxCrossEntropy::args(s))
-            },
-        ));
-    }
+    let (dense, gelu, residual, softmax) = (
+        ("dense", "f64"),
+        ("gelu", "f32"),
+        ("residual", "f64"),
+        ("softmax-cross-entropy", "f64"),
+    );
+    plant(
+        &mut out,
+        dense,
+        DenseRuleBug::ALL,
+        |b| match b {
+            DenseRuleBug::TangentSignWeight | DenseRuleBug::TangentBiasMissing => {
+                in_rule(b.info(), Tangents)
+            }
+            _ => in_rule(b.info(), SecondOrder),
+        },
+        |b, entry, s, a| {
+            let layer = Dense::<f64>::new(None).with_rule_bug(b);
+            match entry {
+                Tangents => a.run_tangents(&layer, &Dense::args(s)),
+                _ => a.run_second_order(&layer, &zero_bias(Dense::args(s))),
+            }
+        },
+    );
+    plant(
+        &mut out,
+        gelu,
+        GeluRuleBug::ALL,
+        |b| match b {
+            GeluRuleBug::TangentSignFlipped => in_rule(b.info(), Tangents),
+            GeluRuleBug::HessianMissingTerm => in_rule(b.info(), SecondOrder),
+        },
+        |b, entry, s, a| {
+            let layer = Gelu::new(None).with_rule_bug(b);
+            match entry {
+                Tangents => a.run_tangents(&layer, &Gelu::args(s)),
+                _ => a.run_second_order(&layer, &Gelu::args(s)),
+            }
+        },
+    );
+    plant(
+        &mut out,
+        residual,
+        ResidualRuleBug::ALL,
+        |b| match b {
+            ResidualRuleBug::TangentMissingBias => in_rule(b.info(), Tangents),
+            ResidualRuleBug::UpstreamShiftedByBias => in_rule(b.info(), SecondOrder),
+        },
+        |b, entry, s, a| {
+            let layer = Residual::<f64>::new(None).with_rule_bug(b);
+            match entry {
+                Tangents => a.run_tangents(&layer, &Residual::args(s)),
+                _ => a.run_second_order(&layer, &zero_bias(Residual::args(s))),
+            }
+        },
+    );
+    plant(
+        &mut out,
+        softmax,
+        SoftmaxRuleBug::ALL,
+        |b| in_rule(b.info(), Tangents),
+        |b, _, s, a| {
+            let layer = SoftmaxCrossEntropy::<f64>::new(None).with_rule_bug(b);
+            a.run_tangents(&layer, &SoftmaxCrossEntropy::args(s))
+        },
+    );
 
     // Backward bugs against the correct tangent rule.
-    for &bug in DenseBug::ALL
-        .iter()
-        .filter(|&&b| b != DenseBug::Accumulates)
-    {
-        out.push(case(
-            "dense",
-            "f64",
-            Tangents,
-            backward_bug(bug.info()),
-            move |s, a| a.run_tangents(&Dense::<f64>::new(Some(bug)), &Dense::args(s)),
-        ));
-    }
-    for &bug in GeluBug::ALL {
-        out.push(case(
-            "gelu",
-            "f32",
-            Tangents,
-            backward_bug(bug.info()),
-            move |s, a| a.run_tangents(&Gelu::new(Some(bug)), &Gelu::args(s)),
-        ));
-    }
-    for &bug in ResidualBug::ALL {
-        out.push(case(
-            "residual",
-            "f64",
-            Tangents,
-            backward_bug(bug.info()),
-            move |s, a| a.run_tangents(&Residual::<f64>::new(Some(bug)), &Residual::args(s)),
-        ));
-    }
-    for &bug in SoftmaxBug::ALL {
-        out.push(case(
-            "softmax-cross-entropy",
-            "f64",
-            Tangents,
-            backward_bug(bug.info()),
-            move |s, a| {
-                a.run_tangents(
-                    &SoftmaxCrossEntropy::<f64>::new(Some(bug)),
-                    &SoftmaxCrossEntropy::args(s),
-                )
-            },
-        ));
-    }
+    let dense_bugs: Vec<DenseBug> = (DenseBug::ALL.iter().copied())
+        .filter(|&b| b != DenseBug::Accumulates)
+        .collect();
+    plant(
+        &mut out,
+        dense,
+        &dense_bugs,
+        |b| in_backward(b.info()),
+        |b, _, s, a| a.run_tangents(&Dense::<f64>::new(Some(b)), &Dense::args(s)),
+    );
+    plant(
+        &mut out,
+        gelu,
+        GeluBug::ALL,
+        |b| in_backward(b.info()),
+        |b, _, s, a| a.run_tangents(&Gelu::new(Some(b)), &Gelu::args(s)),
+    );
+    plant(
+        &mut out,
+        residual,
+        ResidualBug::ALL,
+        |b| in_backward(b.info()),
+        |b, _, s, a| a.run_tangents(&Residual::<f64>::new(Some(b)), &Residual::args(s)),
+    );
+    plant(
+        &mut out,
+        softmax,
+        SoftmaxBug::ALL,
+        |b| in_backward(b.info()),
+        |b, _, s, a| {
+            let layer = SoftmaxCrossEntropy::<f64>::new(Some(b));
+            a.run_tangents(&layer, &SoftmaxCrossEntropy::args(s))
+        },
+    );
     out
 }
