@@ -413,6 +413,25 @@ mod tests {
     }
 
     #[test]
+    fn an_identity_is_bounded_by_its_rounding_or_the_fixed_rule() {
+        let t = Tolerance::default();
+        // margin × (rounding + smallest normal of f64)
+        let b = t.identity_bound(1e-15, 3.0, f64::EPSILON);
+        assert!(close(b, 4.0 * (1e-15 + f64::MIN_POSITIVE)), "{b}");
+        assert!(t.identity_bound(f64::NAN, 3.0, f64::EPSILON).is_nan());
+        assert!(t
+            .identity_bound(1e-15, f64::INFINITY, f64::EPSILON)
+            .is_nan());
+        let fixed = Tolerance {
+            max_absolute: Some(1e-9),
+            max_relative: Some(1e-3),
+            ..Tolerance::default()
+        };
+        assert!(close(fixed.identity_bound(1e-15, 2.0, f64::EPSILON), 2e-3));
+        assert!(close(fixed.identity_bound(1e-15, 1e-9, f64::EPSILON), 1e-9));
+    }
+
+    #[test]
     fn fixed_bounds_replace_the_error_bar() {
         let rel = Tolerance {
             max_relative: Some(0.01),

@@ -175,6 +175,10 @@ enum Flaw {
     Reshaped,
     /// `jvp` panics.
     Panics,
+    /// `hessian_vector` returns a tensor of the wrong shape.
+    ReshapedHessian,
+    /// `hessian_vector` returns one tensor too many.
+    ExtraHessian,
     /// `backward_generic` panics on complex numbers.
     GenericPanics,
 }
@@ -247,10 +251,14 @@ impl GenericBackward for FrostOdds {
                 f64::NAN
             }
         };
-        Some(Gradients::from(vec![Tensor::from_fn(
-            x.shape().to_vec(),
-            |i| second(x[i]) * up[0][i] * along.input(0)[i],
-        )]))
+        let h = Tensor::from_fn(x.shape().to_vec(), |i| {
+            second(x[i]) * up[0][i] * along.input(0)[i]
+        });
+        Some(Gradients::from(match self.flaw {
+            Flaw::ReshapedHessian => vec![Tensor::full(vec![3], 0.0)],
+            Flaw::ExtraHessian => vec![h.clone(), h],
+            _ => vec![h],
+        }))
     }
 }
 
@@ -320,4 +328,30 @@ fn misbehaving_rules_are_errors_or_failing_rows_never_panics() {
         )
         .unwrap_err();
     assert!(err.to_string().contains("backward_generic"), "{err}");
+    let report = Audit::new()
+        .run_second_order(
+            &FrostOdds {
+                flaw: Flaw::ReshapedHessian,
+            },
+            &args,
+        )
+        .unwrap();
+    let row = report.row("chill").unwrap();
+    assert_eq!(
+        (row.check, row.verdict),
+        (Check::HessianVector, Verdict::WrongShape)
+    );
+    assert!(report.row("symmetry").unwrap().verdict.is_pass());
+    let err = Audit::new()
+        .run_second_order(
+            &FrostOdds {
+                flaw: Flaw::ExtraHessian,
+            },
+            &args,
+        )
+        .unwrap_err();
+    assert!(
+        matches!(err, Error::OutputCount { ref call, found: 2, .. } if call == "hessian_vector"),
+        "{err}"
+    );
 }
