@@ -1,5 +1,8 @@
 //! What an audit costs: wall time of whole audits of a dense layer in each
-//! scheme and precision, and of the scalar schemes alone.
+//! scheme and precision, of the scalar schemes alone, and of the checks of
+//! other rules (tangents with the adjoint identity, second order with the
+//! integrability test) beside one forward and one backward of the same
+//! layer, at two sizes.
 //!
 //! Run: `cargo bench --bench audit` (figures in README.md, "Performance").
 
@@ -32,6 +35,43 @@ fn audits(c: &mut Criterion) {
     g.finish();
 }
 
+/// The gallery's dense layer at batch n, i inputs, o outputs.
+fn dense_rule_args(n: usize, i: usize, o: usize) -> plumbline::Args<f64> {
+    use plumbline::Tensor;
+    let x = Tensor::from_fn(vec![n, i], |ix| ((ix[0] * 7 + ix[1]) as f64).sin());
+    let w = Tensor::from_fn(vec![o, i], |ix| ((ix[0] * 3 + ix[1]) as f64).cos() / 4.0);
+    let b = Tensor::from_fn(vec![o], |ix| ix[0] as f64 / 10.0);
+    plumbline::Args::new(vec![x], vec![w, b])
+}
+
+fn rules(c: &mut Criterion) {
+    use plumbline::gallery::Dense as GalleryDense;
+    use plumbline::{Forward, Layer};
+    let mut g = c.benchmark_group("rules_dense");
+    let layer = GalleryDense::<f64>::new(None);
+    let audit = Audit::new();
+    // 264 and 16,448 differentiable elements.
+    for (label, (n, i, o)) in [("small", (8, 16, 8)), ("large", (64, 128, 64))] {
+        let args = dense_rule_args(n, i, o);
+        let up = layer.forward(&args);
+        g.bench_with_input(
+            BenchmarkId::new("forward_and_backward", label),
+            &args,
+            |b, a| b.iter(|| black_box(layer.backward(a, &layer.forward(a)))),
+        );
+        g.bench_with_input(
+            BenchmarkId::new("tangents_and_adjoint", label),
+            &args,
+            |b, a| b.iter(|| black_box(audit.run_tangents(&layer, a).unwrap())),
+        );
+        g.bench_with_input(BenchmarkId::new("second_order", label), &args, |b, a| {
+            b.iter(|| black_box(audit.run_second_order(&layer, a).unwrap()))
+        });
+        black_box(up);
+    }
+    g.finish();
+}
+
 fn schemes(c: &mut Criterion) {
     let f = |x: f64| x.exp() / (x.sin().powi(3) + x.cos().powi(3)).sqrt();
     c.bench_function("scalar/central_difference", |b| {
@@ -60,6 +100,6 @@ criterion_group! {
         .sample_size(10)
         .warm_up_time(Duration::from_millis(300))
         .measurement_time(Duration::from_secs(1));
-    targets = audits, schemes
+    targets = audits, schemes, rules
 }
 criterion_main!(benches);

@@ -578,6 +578,8 @@ fn main() {
         println!("{k:<30} {a:>12} {c:>16}");
     }
 
+    let rules_json = rule_checks(n_cases);
+
     let modes_json: serde_json::Map<String, Value> = MODES
         .iter()
         .zip(&modes)
@@ -588,6 +590,7 @@ fn main() {
             "plumbline": ours.json(),
             "fixed_step": fixed_json,
         },
+        "rules": rules_json,
         "modes": modes_json,
         "settings": {
             "gallery_cases_per_layer": n_cases,
@@ -603,6 +606,67 @@ fn main() {
     }
     println!();
     println!("wrote {}", path.display());
+}
+
+/// The checks of other rules (`Audit::run_tangents`,
+/// `Audit::run_second_order`) on the gallery's rule cases: every planted
+/// bug in a rule (and every backward bug seen through the adjoint
+/// identity) with the row it should fail, and false alarms over `n_cases`
+/// seeds per correct case.
+fn rule_checks(n_cases: u64) -> Value {
+    use plumbline::gallery::rule_cases;
+    let cases = rule_cases();
+    println!();
+    println!("Rules: planted bugs in tangent and second-order rules (seed 1)");
+    let (mut planted, mut detected, mut right) = (0, 0, 0);
+    let mut by_row: std::collections::BTreeMap<String, [usize; 3]> = Default::default();
+    for case in cases.iter().filter(|c| c.bug.is_some()) {
+        let bug = case.bug.unwrap_or_else(|| unreachable!());
+        let report = case
+            .audit(1, &Audit::new().seed(1))
+            .unwrap_or_else(|e| panic!("{}: {e}", case.label()));
+        let outcome = judge(&bug.expect, &report);
+        let right_row = report
+            .row(bug.expect.tensor)
+            .is_some_and(|r| Some(r.check) == case.check);
+        let ok = outcome.right_diagnosis && right_row;
+        planted += 1;
+        detected += usize::from(outcome.detected);
+        right += usize::from(ok);
+        let key = case.check.map_or("-", |c| c.as_str()).to_string();
+        let counts = by_row.entry(key).or_default();
+        counts[0] += 1;
+        counts[1] += usize::from(outcome.detected);
+        counts[2] += usize::from(ok);
+        println!(
+            "{:<62} {:<4} {}",
+            case.label(),
+            if outcome.detected { "yes" } else { "NO" },
+            truncate(&outcome.said, 70)
+        );
+    }
+    let (mut audits, mut alarms) = (0, 0);
+    for case in cases.iter().filter(|c| c.bug.is_none()) {
+        for seed in 0..n_cases {
+            let report = case
+                .audit(seed, &Audit::new().seed(seed))
+                .unwrap_or_else(|e| panic!("{}: {e}", case.label()));
+            audits += 1;
+            alarms += usize::from(!report.passed());
+        }
+    }
+    println!("rules: {detected}/{planted} planted bugs detected, {right} with the right row and diagnosis; {alarms} false alarms in {audits} correct audits");
+    json!({
+        "planted": planted,
+        "detected": detected,
+        "right_row_and_diagnosis": right,
+        "by_check": by_row
+            .iter()
+            .map(|(k, [p, d, r])| (k.clone(), json!({"planted": p, "detected": d, "right": r})))
+            .collect::<serde_json::Map<_, _>>(),
+        "correct_audits": audits,
+        "false_alarms": alarms,
+    })
 }
 
 fn truncate(s: &str, n: usize) -> String {

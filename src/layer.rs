@@ -214,6 +214,138 @@ impl<G: GenericForward> Forward for G {
     }
 }
 
+/// A hand-written forward-mode rule: the Jacobian-vector product of the
+/// layer, checked by [`Audit::run_tangents`](crate::Audit::run_tangents).
+///
+/// `jvp` returns, for tangents `along` (one tensor per argument, in
+/// [`Args`] order, each of its argument's shape), the directional
+/// derivative of every output: `ẏ_k = Σ_x J_k(x)·ẋ`, one tensor per
+/// declared output, in order. Fixed inputs (token ids, labels) get a zero
+/// tangent, which the rule may ignore.
+///
+/// The same contract as [`Layer`] holds: pure, deterministic, returns
+/// fresh tensors. A wrong count of tangents is an
+/// [`Error::OutputCount`](crate::Error::OutputCount); a tangent of the
+/// wrong shape, or one left out, is a failing row, as for gradients.
+///
+/// ```
+/// use plumbline::prelude::*;
+///
+/// /// Frost risk per orchard block, y = x², from a chill index x.
+/// struct Chill;
+///
+/// impl Layer for Chill {
+///     type Real = f64;
+///     fn signature(&self) -> Signature {
+///         Signature::new().input("x", "block").output("y", "block")
+///     }
+///     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+///         let x = a.input(0);
+///         Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |i| 2.0 * x[i] * up[0][i])])
+///     }
+/// }
+///
+/// impl GenericForward for Chill {
+///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+///         vec![a.input(0).map(|x| x * x)]
+///     }
+/// }
+///
+/// impl TangentRule for Chill {
+///     fn jvp(&self, a: &Args<f64>, along: &Args<f64>) -> Vec<Tensor<f64>> {
+///         let (x, dx) = (a.input(0), along.input(0));
+///         vec![Tensor::from_fn(x.shape().to_vec(), |i| 2.0 * x[i] * dx[i])]
+///     }
+/// }
+///
+/// let x = Tensor::new(vec![3], vec![0.4, -1.2, 2.5])?;
+/// let report = Audit::new().run_tangents(&Chill, &Args::new(vec![x], vec![]))?;
+/// report.assert_passed();
+/// assert!(report.row("adjoint").is_some());
+/// # Ok::<(), plumbline::Error>(())
+/// ```
+pub trait TangentRule: Layer {
+    /// The tangents of the outputs, one tensor per declared output, for
+    /// tangents `along` of the arguments (inputs, then parameters).
+    fn jvp(&self, args: &Args<Self::Real>, along: &Args<Self::Real>) -> Vec<Tensor<Self::Real>>;
+}
+
+/// A backward written once for any [`Scalar`], which gives the audit
+/// second derivatives: [`Audit::run_second_order`](crate::Audit::run_second_order)
+/// runs it on complex-step numbers to get exact Hessian-vector products of
+/// the probe φ = Σ_k ⟨w_k, y_k⟩, checks that they are symmetric (the
+/// *integrability test*), and checks a hand-written
+/// [`hessian_vector`](GenericBackward::hessian_vector) if the layer has one.
+///
+/// `backward_generic` must compute what [`Layer::backward`] computes (the
+/// simplest way: `backward` calls it), and stay on the [`Scalar`] path.
+///
+/// ```
+/// use plumbline::prelude::*;
+///
+/// /// Frost risk per orchard block, y = x², from a chill index x.
+/// struct Chill;
+///
+/// impl Layer for Chill {
+///     type Real = f64;
+///     fn signature(&self) -> Signature {
+///         Signature::new().input("x", "block").output("y", "block")
+///     }
+///     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+///         self.backward_generic(a, up)
+///     }
+/// }
+///
+/// impl GenericForward for Chill {
+///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+///         vec![a.input(0).map(|x| x * x)]
+///     }
+/// }
+///
+/// impl GenericBackward for Chill {
+///     fn backward_generic<T: Scalar>(&self, a: &Args<T>, up: &[Tensor<T>]) -> Gradients<T> {
+///         let (x, two) = (a.input(0), T::one() + T::one());
+///         Gradients::from(vec![Tensor::from_fn(x.shape().to_vec(), |i| two * x[i] * up[0][i])])
+///     }
+///     fn hessian_vector(
+///         &self,
+///         _: &Args<f64>,
+///         up: &[Tensor<f64>],
+///         along: &Args<f64>,
+///     ) -> Option<Gradients<f64>> {
+///         let dx = along.input(0);
+///         Some(Gradients::from(vec![Tensor::from_fn(dx.shape().to_vec(), |i| 2.0 * up[0][i] * dx[i])]))
+///     }
+/// }
+///
+/// let x = Tensor::new(vec![3], vec![0.4, -1.2, 2.5])?;
+/// let report = Audit::new().run_second_order(&Chill, &Args::new(vec![x], vec![]))?;
+/// report.assert_passed();
+/// assert!(report.row("symmetry").is_some());
+/// # Ok::<(), plumbline::Error>(())
+/// ```
+pub trait GenericBackward: Layer {
+    /// The backward pass, for any scalar type: the same values as
+    /// [`Layer::backward`].
+    fn backward_generic<T: Scalar>(&self, args: &Args<T>, upstream: &[Tensor<T>]) -> Gradients<T>;
+
+    /// A hand-written second-order rule: the derivative of the backward
+    /// along `along` (one tangent per argument, in [`Args`] order) with the
+    /// upstream held fixed, i.e. the Hessian of φ = Σ_k ⟨upstream_k, y_k⟩
+    /// times the tangent, one tensor per differentiable argument (as
+    /// [`Gradients`]). Provided: `None` (the layer has no such rule; the
+    /// integrability test still runs).
+    fn hessian_vector(
+        &self,
+        args: &Args<Self::Real>,
+        upstream: &[Tensor<Self::Real>],
+        along: &Args<Self::Real>,
+    ) -> Option<Gradients<Self::Real>> {
+        let _ = (args, upstream, along);
+        None
+    }
+}
+
 pub(crate) mod sealed {
     use super::{Args, ComplexStep, GenericForward, Tensor};
     use crate::scalar::Traced;

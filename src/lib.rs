@@ -23,6 +23,13 @@
 //! * [`Audit`] is a builder of settings whose [`run`](Audit::run) checks a
 //!   layer at given [`Args`] and returns a [`Report`]. The audit computes;
 //!   it never prints.
+//! * Other hand-written rules are optional traits: [`TangentRule`] (a
+//!   forward-mode rule, checked by [`Audit::run_tangents`] against the
+//!   forward's directional derivatives and against the backward by the
+//!   adjoint identity) and [`GenericBackward`] (a backward for any
+//!   [`Scalar`], which [`Audit::run_second_order`] differentiates by the
+//!   complex step to check a hand-written Hessian-vector product and the
+//!   symmetry of the backward's Jacobian).
 //! * [`Report`] holds one [`Row`] per tensor, worst first, with the worst
 //!   element, the bound that applied, a [`Verdict`] and a [`Diagnosis`].
 //!   `Display` renders the aligned table; [`Report::assert_passed`] panics
@@ -141,7 +148,7 @@ pub use fn_layer::FnLayer;
 pub use harness::check_layer;
 #[doc(hidden)]
 pub use harness::{__Audited, __Entry, __OnOneThread, __OnThreads, __Pick, __assert_backward};
-pub use layer::{Args, Forward, GenericForward, Gradients, Layer};
+pub use layer::{Args, Forward, GenericBackward, GenericForward, Gradients, Layer, TangentRule};
 pub use report::{Report, Row, Verdict};
 pub use scalar::{Real, Scalar};
 pub use scheme::Scheme;
@@ -157,7 +164,7 @@ pub use tensor::Tensor;
 pub mod prelude {
     pub use crate::assert_backward;
     pub use crate::{
-        Args, Audit, FnLayer, Forward, GenericForward, Gradients, Layer, Real, Report, Scalar,
-        Scheme, Signature, Tensor,
+        Args, Audit, FnLayer, Forward, GenericBackward, GenericForward, Gradients, Layer, Real,
+        Report, Scalar, Scheme, Signature, TangentRule, Tensor,
     };
 }

@@ -3,6 +3,7 @@
 
 pub use crate::compare::{ElementCheck, ElementStatus, JointKink};
 pub use crate::diagnosis::summary::Verdict;
+pub use crate::diagnosis::Culprit;
 pub use crate::signature::Role;
 pub use crate::tensor::MultiIndex;
 
@@ -57,6 +58,10 @@ pub struct Report {
     pub forward_evals: usize,
     /// Backward evaluations spent.
     pub backward_evals: usize,
+    /// Calls of the layer's other hand-written rules (the forward-mode
+    /// rule, the Hessian-vector product).
+    #[serde(default)]
+    pub rule_evals: usize,
     /// The layer's precision: `f32` or `f64`.
     pub(crate) precision: String,
     /// The precision the reference derivatives were computed in.
@@ -68,7 +73,74 @@ pub struct Report {
     pub(crate) kinks_fail: bool,
 }
 
-/// The finding for one input or parameter tensor.
+/// What a row checks: the backward against the forward (the plain audit),
+/// or one of the checks of a layer's other hand-written rules.
+///
+/// Rows of [`Audit::run`](crate::Audit::run) are `Gradient`; those of
+/// [`Audit::run_tangents`](crate::Audit::run_tangents) are `Tangent` and
+/// `Adjoint`; those of
+/// [`Audit::run_second_order`](crate::Audit::run_second_order) are
+/// `HessianVector` and `Symmetry`. The table shows the check before the
+/// tensor's name for every row but `Gradient` (`tangent y`, `adjoint`).
+///
+/// ```
+/// use plumbline::report::Check;
+/// assert_eq!(Check::default(), Check::Gradient);
+/// assert_eq!(Check::Symmetry.as_str(), "symmetry");
+/// ```
+#[derive(
+    Clone, Copy, Debug, Default, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize,
+)]
+#[serde(rename_all = "kebab-case")]
+#[non_exhaustive]
+pub enum Check {
+    /// One gradient of the backward against derivatives of the forward.
+    #[default]
+    Gradient,
+    /// One output's tangent from the hand-written forward-mode rule
+    /// ([`TangentRule`](crate::TangentRule)) against the directional
+    /// derivative of the forward.
+    Tangent,
+    /// The adjoint identity ⟨u, J v⟩ = ⟨Jᵀu, v⟩ between the forward-mode
+    /// rule and the backward: one number per layer.
+    Adjoint,
+    /// One tensor of the hand-written Hessian-vector product
+    /// ([`GenericBackward::hessian_vector`](crate::GenericBackward::hessian_vector))
+    /// against the complex step through the generic backward.
+    HessianVector,
+    /// The integrability test ⟨v, H w⟩ = ⟨w, H v⟩: the backward's Jacobian
+    /// must be symmetric, since the backward of a scalar probe is a
+    /// gradient. One number per layer.
+    Symmetry,
+}
+
+impl Check {
+    /// The word shown in tables and JSON.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Check::Gradient => "gradient",
+            Check::Tangent => "tangent",
+            Check::Adjoint => "adjoint",
+            Check::HessianVector => "hessian-vector",
+            Check::Symmetry => "symmetry",
+        }
+    }
+
+    /// `true` for checks of the whole layer (one number), which have no
+    /// tensor of their own.
+    pub fn is_whole_layer(self) -> bool {
+        matches!(self, Check::Adjoint | Check::Symmetry)
+    }
+}
+
+impl std::fmt::Display for Check {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+/// The finding for one input or parameter tensor (or, for the checks of
+/// other rules, one output tensor or the whole layer: see [`Check`]).
 ///
 /// ```
 /// use plumbline::prelude::*;
@@ -105,7 +177,12 @@ pub struct Report {
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 #[non_exhaustive]
 pub struct Row {
-    /// The tensor's name from the signature.
+    /// What the row checks (`Gradient` in reports written before the
+    /// field existed).
+    #[serde(default)]
+    pub check: Check,
+    /// The tensor's name from the signature (for whole-layer checks, the
+    /// check's name: `adjoint`, `symmetry`).
     pub name: String,
     /// Input or parameter.
     pub role: Role,

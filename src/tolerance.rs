@@ -186,6 +186,26 @@ impl Tolerance {
         self.margin * (estimate.error + floor + resolution(layer_eps))
     }
 
+    /// The largest `|left − right|` accepted for an identity between two
+    /// sums that are equal in exact arithmetic (the adjoint identity, the
+    /// symmetry of a Hessian), given the estimated `rounding` of their
+    /// difference and the larger of their magnitudes, `size`.
+    ///
+    /// With fixed bounds, the fixed rule applies to the two sums as to an
+    /// element; otherwise `margin × (rounding + smallest normal)` of the
+    /// precision with epsilon `eps`. A non-finite input gives NaN, which
+    /// nothing passes.
+    pub fn identity_bound(&self, rounding: f64, size: f64, eps: f64) -> f64 {
+        if !(rounding.is_finite() && size.is_finite()) {
+            return f64::NAN;
+        }
+        if self.is_fixed() {
+            let abs = self.max_absolute.unwrap_or(0.0);
+            return abs.max(self.max_relative.unwrap_or(0.0) * size);
+        }
+        self.margin * (rounding + resolution(eps))
+    }
+
     /// `true` if the difference is within the bound. NaN never passes.
     pub fn accepts(diff: f64, bound: f64) -> bool {
         diff <= bound
@@ -390,6 +410,25 @@ mod tests {
         };
         let b = ten.bound(&estimate(1e-10, 2.0), 1.0, eps);
         assert!(close(b, 4.000_781_597_009_336e-10 * 2.5), "{b:e}");
+    }
+
+    #[test]
+    fn an_identity_is_bounded_by_its_rounding_or_the_fixed_rule() {
+        let t = Tolerance::default();
+        // margin × (rounding + smallest normal of f64)
+        let b = t.identity_bound(1e-15, 3.0, f64::EPSILON);
+        assert!(close(b, 4.0 * (1e-15 + f64::MIN_POSITIVE)), "{b}");
+        assert!(t.identity_bound(f64::NAN, 3.0, f64::EPSILON).is_nan());
+        assert!(t
+            .identity_bound(1e-15, f64::INFINITY, f64::EPSILON)
+            .is_nan());
+        let fixed = Tolerance {
+            max_absolute: Some(1e-9),
+            max_relative: Some(1e-3),
+            ..Tolerance::default()
+        };
+        assert!(close(fixed.identity_bound(1e-15, 2.0, f64::EPSILON), 2e-3));
+        assert!(close(fixed.identity_bound(1e-15, 1e-9, f64::EPSILON), 1e-9));
     }
 
     #[test]

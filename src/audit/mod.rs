@@ -9,6 +9,7 @@ use crate::error::Error;
 use crate::scheme::Scheme;
 use crate::tolerance::Tolerance;
 
+mod rules;
 mod run;
 mod screen;
 

@@ -31,7 +31,7 @@ fn cost_per_element(scheme: Scheme) -> u64 {
 
 /// Calls the layer, turning a panic (or an op's error an adapter carried
 /// out of the call) into an error that names the call.
-fn call<T>(layer: &str, call: &str, f: impl FnOnce() -> T) -> Result<T, Error> {
+pub(super) fn call<T>(layer: &str, call: &str, f: impl FnOnce() -> T) -> Result<T, Error> {
     guarded(f).map_err(|fault| fault.into_error(layer, call, String::new()))
 }
 
@@ -106,12 +106,11 @@ impl Audit {
         args: &Args<L::Real>,
         workers: Option<&dyn Workers<L::Real>>,
     ) -> Result<Report, Error> {
-        self.validate()?;
-        let name = (self.name.clone())
-            .or_else(|| layer.shown_name())
-            .unwrap_or_else(short_type_name::<L>);
-        let sig = call(&name, "signature", || layer.signature())?;
-        let bindings = sig.bind(&name, args)?;
+        let Start {
+            name,
+            sig,
+            bindings,
+        } = self.start(layer, args)?;
         let generic = layer.reference().is_some() && !self.own_precision;
         let scheme = self.choose_scheme(&name, generic)?;
 
@@ -130,11 +129,7 @@ impl Audit {
             ..Evidence::default()
         };
 
-        let mut rng = rand::rngs::StdRng::seed_from_u64(self.seed);
-        let upstream: Vec<Tensor<L::Real>> = y0
-            .iter()
-            .map(|y| y.map(|_| L::Real::from_f64(rng.random_range(-1.0..1.0))))
-            .collect();
+        let upstream = super::rules::upstream_for(&y0, self.seed);
         let g1 = call(&name, "backward", || layer.backward(args, &upstream))?;
         let g2 = call(&name, "backward (second call)", || {
             layer.backward(args, &upstream)
@@ -272,11 +267,7 @@ impl Audit {
                 &mut notes,
             )?);
         }
-        // Failing rows first, then by relative error, worst first.
-        rows.sort_by(|a, b| {
-            (a.verdict.is_pass().cmp(&b.verdict.is_pass()))
-                .then(b.max_rel_error.total_cmp(&a.max_rel_error))
-        });
+        sort_rows(&mut rows);
         let forward_evals = engine.evals + 2;
         let backward_evals = engine.backward_evals + 2;
         let reference_precision = engine.precision_name().to_string();
@@ -288,6 +279,7 @@ impl Audit {
             notes,
             forward_evals,
             backward_evals,
+            rule_evals: 0,
             precision: L::Real::NAME.to_string(),
             reference_precision,
             tolerance: self.tolerance.clone(),
@@ -295,7 +287,27 @@ impl Audit {
         })
     }
 
-    fn choose_scheme(&self, name: &str, generic: bool) -> Result<Scheme, Error> {
+    /// Settings, name, signature and argument binding: the start every
+    /// audit and check shares.
+    pub(super) fn start<L: Forward + ?Sized>(
+        &self,
+        layer: &L,
+        args: &Args<L::Real>,
+    ) -> Result<Start, Error> {
+        self.validate()?;
+        let name = (self.name.clone())
+            .or_else(|| layer.shown_name())
+            .unwrap_or_else(short_type_name::<L>);
+        let sig = call(&name, "signature", || layer.signature())?;
+        let bindings = sig.bind(&name, args)?;
+        Ok(Start {
+            name,
+            sig,
+            bindings,
+        })
+    }
+
+    pub(super) fn choose_scheme(&self, name: &str, generic: bool) -> Result<Scheme, Error> {
         match (self.scheme, generic) {
             (Some(Scheme::ComplexStep), false) => Err(Error::Setting {
                 setting: "scheme".into(),
@@ -529,33 +541,77 @@ impl Audit {
             }
             _ => None,
         };
-        Ok(Row {
+        Ok(assemble(RowParts {
+            check: crate::report::Check::Gradient,
             name: t.spec.name.clone(),
             role: t.spec.role,
             gradient_shape: t.grad.as_ref().map(|g| g.shape().to_vec()),
             scheme: t.scheme,
-            checked: elements.len(),
-            total: shape.iter().product(),
-            failing: s.failing,
-            kinks: s.kinks,
-            unchecked: s.unchecked,
-            wide: s.wide,
-            worst: s.worst.map(|k| Worst {
-                index: MultiIndex::from_flat(&shape, elements[k].index),
-                analytic: elements[k].analytic,
-                numeric: elements[k].numeric,
-                bound: elements[k].bound,
-            }),
-            max_abs_error: s.max_abs_error,
-            max_rel_error: s.max_rel_error,
-            verdict: s.verdict,
+            summary: s,
             joint_kink,
             diagnosis,
             screen: t.screen,
             step_sweep,
             shape,
             elements,
-        })
+        }))
+    }
+}
+
+/// The layer's name, signature and argument bindings.
+pub(super) struct Start {
+    pub name: String,
+    pub sig: Signature,
+    pub bindings: crate::signature::Bindings,
+}
+
+/// What a row of element comparisons is built from.
+pub(super) struct RowParts {
+    pub check: crate::report::Check,
+    pub name: String,
+    pub role: Role,
+    pub gradient_shape: Option<Vec<usize>>,
+    pub scheme: Scheme,
+    pub summary: crate::diagnosis::summary::Summary,
+    pub joint_kink: Option<compare::JointKink>,
+    pub diagnosis: Option<crate::diagnosis::Diagnosis>,
+    pub screen: Option<Screen>,
+    pub step_sweep: Option<StepSweep>,
+    pub shape: Vec<usize>,
+    pub elements: Vec<compare::ElementCheck>,
+}
+
+/// A row of element comparisons: counts and figures from the summary,
+/// the worst element located in the tensor.
+pub(super) fn assemble(p: RowParts) -> Row {
+    let s = p.summary;
+    Row {
+        check: p.check,
+        name: p.name,
+        role: p.role,
+        gradient_shape: p.gradient_shape,
+        scheme: p.scheme,
+        checked: p.elements.len(),
+        total: p.shape.iter().product(),
+        failing: s.failing,
+        kinks: s.kinks,
+        unchecked: s.unchecked,
+        wide: s.wide,
+        worst: s.worst.map(|k| Worst {
+            index: MultiIndex::from_flat(&p.shape, p.elements[k].index),
+            analytic: p.elements[k].analytic,
+            numeric: p.elements[k].numeric,
+            bound: p.elements[k].bound,
+        }),
+        max_abs_error: s.max_abs_error,
+        max_rel_error: s.max_rel_error,
+        verdict: s.verdict,
+        joint_kink: p.joint_kink,
+        diagnosis: p.diagnosis,
+        screen: p.screen,
+        step_sweep: p.step_sweep,
+        shape: p.shape,
+        elements: p.elements,
     }
 }
 
@@ -820,9 +876,17 @@ impl<L: Forward + ?Sized> Prober for SlotProber<'_, '_, L> {
     }
 }
 
+/// Failing rows first, then by relative error, worst first.
+pub(super) fn sort_rows(rows: &mut [Row]) {
+    rows.sort_by(|a, b| {
+        (a.verdict.is_pass().cmp(&b.verdict.is_pass()))
+            .then(b.max_rel_error.total_cmp(&a.max_rel_error))
+    });
+}
+
 /// More gradients than differentiable tensors: refused, naming both
 /// counts, rather than truncated (which would shift rows).
-fn check_gradient_count<T>(
+pub(super) fn check_gradient_count<T>(
     layer: &str,
     differentiable: &[(usize, &Slot)],
     g: &Gradients<T>,

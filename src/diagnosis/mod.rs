@@ -214,6 +214,43 @@ pub enum Diagnosis {
         /// derivatives.
         outside: usize,
     },
+    /// The adjoint identity ⟨u, J v⟩ = ⟨Jᵀu, v⟩ fails between the
+    /// forward-mode rule and the backward; the tangent rows say which rule
+    /// is at fault.
+    RuleAtFault {
+        /// The rule the evidence points to.
+        culprit: Culprit,
+    },
+    /// ⟨v, H w⟩ ≠ ⟨w, H v⟩: the backward's Jacobian is not symmetric, so
+    /// the backward is not the gradient of any function, whatever the
+    /// forward says at this point.
+    NotSymmetric,
+}
+
+/// Which hand-written rule an adjoint failure points to.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+#[non_exhaustive]
+pub enum Culprit {
+    /// Every tangent row agrees with the forward's directional
+    /// derivatives: the backward is the wrong one.
+    Backward,
+    /// A tangent row disagrees with the forward: the forward-mode rule is
+    /// wrong (the backward may be right, or wrong another way).
+    TangentRule,
+    /// The tangent rows could not be compared (no reference): the two
+    /// rules disagree, and nothing says which is wrong.
+    Either,
+}
+
+impl fmt::Display for Culprit {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(match self {
+            Culprit::Backward => "backward wrong (tangent rule matches forward)",
+            Culprit::TangentRule => "tangent rule wrong (differs from forward)",
+            Culprit::Either => "tangent rule and backward disagree",
+        })
+    }
 }
 
 impl Diagnosis {
@@ -242,7 +279,11 @@ impl Diagnosis {
     pub fn is_specific(&self) -> bool {
         match self {
             Diagnosis::Partial { pattern, .. } => !pattern.starts_with(SCATTERED),
-            Diagnosis::WrongValues { .. } | Diagnosis::Kinks { .. } => false,
+            Diagnosis::WrongValues { .. }
+            | Diagnosis::Kinks { .. }
+            | Diagnosis::RuleAtFault {
+                culprit: Culprit::Either,
+            } => false,
             _ => true,
         }
     }
@@ -383,6 +424,8 @@ impl fmt::Display for Diagnosis {
                 crate::format::num(*left),
                 crate::format::num(*right)
             ),
+            Diagnosis::RuleAtFault { culprit } => write!(f, "{culprit}"),
+            Diagnosis::NotSymmetric => f.write_str("backward's Jacobian not symmetric"),
             Diagnosis::Kinks { count, outside } => {
                 if *outside == 0 {
                     write!(f, "{count} at a kink (one-sided values fit)")

@@ -47,6 +47,9 @@ planted_bugs! {
 pub struct Dense<R> {
     /// The planted bug, or `None` for the correct layer.
     pub bug: Option<DenseBug>,
+    /// A bug planted in the layer's other rules (see
+    /// [`DenseRuleBug`](crate::gallery::DenseRuleBug)), or `None`.
+    pub rule_bug: Option<super::DenseRuleBug>,
     buffer: RefCell<Vec<R>>,
     _r: PhantomData<R>,
 }
@@ -56,6 +59,7 @@ impl<R: Real> Dense<R> {
     pub fn new(bug: Option<DenseBug>) -> Self {
         Dense {
             bug,
+            rule_bug: None,
             buffer: RefCell::new(Vec::new()),
             _r: PhantomData,
         }
@@ -83,21 +87,53 @@ impl<R: Real> Layer for Dense<R> {
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
-        let (x, w, g) = (a.input(0).data(), a.param(0).data(), up[0].data());
+        let mut grads = self.backward_with(a, up);
+        if self.bug == Some(DenseBug::Accumulates) {
+            if let Some(dw) = grads.get(1) {
+                let mut buf = self.buffer.borrow_mut();
+                if buf.len() != dw.len() {
+                    *buf = vec![R::zero(); dw.len()];
+                }
+                for (b, v) in buf.iter_mut().zip(dw.data()) {
+                    *b += *v;
+                }
+                let dw = tensor(dw.shape().to_vec(), buf.clone());
+                grads =
+                    Gradients::from(vec![grads.get(0).cloned(), Some(dw), grads.get(2).cloned()]);
+            }
+        }
+        grads
+    }
+}
+
+impl<R: Real> Dense<R> {
+    /// The backward for any scalar, with the planted bug (a buffer kept
+    /// between calls is added by [`Layer::backward`] only) and the planted
+    /// rule bug [`DenseRuleBug::UpstreamShiftedByBias`](crate::gallery::DenseRuleBug).
+    pub(crate) fn backward_with<T: Scalar>(&self, a: &Args<T>, up: &[Tensor<T>]) -> Gradients<T> {
+        let (x, w, b, g) = (
+            a.input(0).data(),
+            a.param(0).data(),
+            a.param(1).data(),
+            up[0].data(),
+        );
         let (n, i, o) = (
             a.input(0).shape()[0],
             a.input(0).shape()[1],
             a.param(0).shape()[0],
         );
-        let mut dx = vec![R::zero(); n * i];
-        let mut dw = vec![R::zero(); o * i];
-        let mut db = vec![R::zero(); o];
+        let shifted = self.rule_bug == Some(super::DenseRuleBug::UpstreamShiftedByBias);
+        let mut dx = vec![T::zero(); n * i];
+        let mut dw = vec![T::zero(); o * i];
+        let mut db = vec![T::zero(); o];
         for s in 0..n {
             for r in 0..o {
                 let gs = g[s * o + r];
                 db[r] += gs;
+                // The planted rule bug: the bias added to the upstream of dx.
+                let gx = if shifted { gs + b[r] } else { gs };
                 for k in 0..i {
-                    dx[s * i + k] += gs * w[r * i + k];
+                    dx[s * i + k] += gx * w[r * i + k];
                     dw[r * i + k] += gs * x[s * i + k];
                 }
             }
@@ -105,11 +141,11 @@ impl<R: Real> Layer for Dense<R> {
         let mut dw = tensor(vec![o, i], dw);
         let mut db = tensor(vec![o], db);
         match self.bug {
-            None | Some(DenseBug::WeightMissing) => {}
+            None | Some(DenseBug::WeightMissing | DenseBug::Accumulates) => {}
             Some(DenseBug::SignFlippedWeight) => dw = dw.map(|v| -v),
             Some(DenseBug::DoubledBias) => db = db.map(|v| v + v),
             Some(DenseBug::MeanOverBatch) => {
-                let nn = R::from_f64(n as f64);
+                let nn = super::c::<T>(n as f64);
                 dw = dw.map(|v| v / nn);
             }
             Some(DenseBug::TransposedWeight) => {
@@ -120,16 +156,6 @@ impl<R: Real> Layer for Dense<R> {
                 );
             }
             Some(DenseBug::BiasNotSummed) => db = tensor(vec![n, o], g.to_vec()),
-            Some(DenseBug::Accumulates) => {
-                let mut buf = self.buffer.borrow_mut();
-                if buf.len() != dw.len() {
-                    *buf = vec![R::zero(); dw.len()];
-                }
-                for (b, v) in buf.iter_mut().zip(dw.data()) {
-                    *b += *v;
-                }
-                dw = tensor(vec![o, i], buf.clone());
-            }
         }
         let dx = tensor(vec![n, i], dx);
         if self.bug == Some(DenseBug::WeightMissing) {

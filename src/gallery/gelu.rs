@@ -49,10 +49,11 @@ pub fn gelu_derivative<T: Scalar>(x: T) -> T {
 /// The derivative of the tanh approximation ½x(1 + tanh(k(x + 0.044715x³))),
 /// k = √(2/π) (Hendrycks & Gimpel, "Gaussian Error Linear Units", 2016):
 /// ½(1 + t) + ½x(1 − t²)·k(1 + 3·0.044715x²). A planted bug uses it.
-fn tanh_gelu_derivative(x: f32) -> f32 {
-    let k = (2.0 / std::f32::consts::PI).sqrt();
-    let t = (k * (x + 0.044715 * x * x * x)).tanh();
-    0.5 * (1.0 + t) + 0.5 * x * (1.0 - t * t) * k * (1.0 + 3.0 * 0.044715 * x * x)
+fn tanh_gelu_derivative<T: Scalar>(x: T) -> T {
+    let (half, one, a) = (c::<T>(0.5), T::one(), c::<T>(0.044715));
+    let k = c::<T>((2.0 / std::f64::consts::PI).sqrt());
+    let t = (k * (x + a * x * x * x)).tanh();
+    half * (one + t) + half * x * (one - t * t) * k * (one + c::<T>(3.0) * a * x * x)
 }
 
 /// GELU applied elementwise, written for `f32` only (a plain [`Layer`]:
@@ -70,12 +71,18 @@ fn tanh_gelu_derivative(x: f32) -> f32 {
 pub struct Gelu {
     /// The planted bug, or `None` for the correct layer.
     pub bug: Option<GeluBug>,
+    /// A bug planted in the layer's other rules (see
+    /// [`GeluRuleBug`](crate::gallery::GeluRuleBug)), or `None`.
+    pub rule_bug: Option<super::GeluRuleBug>,
 }
 
 impl Gelu {
     /// The layer, correct (`None`) or with a planted bug.
     pub fn new(bug: Option<GeluBug>) -> Self {
-        Gelu { bug }
+        Gelu {
+            bug,
+            rule_bug: None,
+        }
     }
 
     /// Random arguments: a 2×5 tensor with values in [-3, 3].
@@ -92,17 +99,22 @@ impl Layer for Gelu {
     }
 
     fn backward(&self, a: &Args<f32>, up: &[Tensor<f32>]) -> Gradients<f32> {
+        self.backward_with(a, up)
+    }
+}
+
+impl Gelu {
+    /// The backward for any scalar, with the planted bug.
+    pub(crate) fn backward_with<T: Scalar>(&self, a: &Args<T>, up: &[Tensor<T>]) -> Gradients<T> {
         let x = a.input(0);
+        let (half, one, root2) = (c::<T>(0.5), T::one(), c::<T>(std::f64::consts::SQRT_2));
         let dx = x.data().iter().zip(up[0].data()).map(|(&x, &g)| {
             let d = match self.bug {
                 None => gelu_derivative(x),
                 Some(GeluBug::DerivativeAtOutput) => gelu_derivative(gelu(x)),
-                Some(GeluBug::MissingDensityTerm) => {
-                    0.5 * (1.0 + Scalar::erf(x / std::f32::consts::SQRT_2))
-                }
+                Some(GeluBug::MissingDensityTerm) => half * (one + (x / root2).erf()),
                 Some(GeluBug::DensityUnnormalised) => {
-                    0.5 * (1.0 + Scalar::erf(x / std::f32::consts::SQRT_2))
-                        + x * (-x * x / 2.0).exp()
+                    half * (one + (x / root2).erf()) + x * (-x * x / c::<T>(2.0)).exp()
                 }
                 Some(GeluBug::TanhApproximation) => tanh_gelu_derivative(x),
                 Some(GeluBug::SignFlipped) => -gelu_derivative(x),

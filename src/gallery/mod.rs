@@ -31,6 +31,29 @@
 //! | LSTM cell | [`LstmCell`](crate::gallery::LstmCell) | yes | [`LstmBug`](crate::gallery::LstmBug) |
 //! | bilinear layer | [`Bilinear`](crate::gallery::Bilinear) | yes | [`BilinearBug`](crate::gallery::BilinearBug) |
 //!
+//! Four layers also carry other hand-written rules, with their own planted
+//! bugs ([`rule_cases`](crate::gallery::rule_cases) lists them): forward-mode
+//! rules ([`TangentRule`](crate::TangentRule)) for `Dense`, `Gelu`,
+//! `Residual` and `SoftmaxCrossEntropy`
+//! ([`DenseRuleBug`](crate::gallery::DenseRuleBug),
+//! [`GeluRuleBug`](crate::gallery::GeluRuleBug),
+//! [`ResidualRuleBug`](crate::gallery::ResidualRuleBug),
+//! [`SoftmaxRuleBug`](crate::gallery::SoftmaxRuleBug)), and generic backwards
+//! ([`GenericBackward`](crate::GenericBackward)) for `Dense`, `Gelu` and
+//! `Residual`, the first two with a hand-written Hessian-vector product.
+//!
+//! ```
+//! use plumbline::gallery::{judge, rule_cases};
+//! use plumbline::Audit;
+//! let case = rule_cases()
+//!     .into_iter()
+//!     .find(|c| c.bug.is_some_and(|b| b.name == "upstream-shifted-by-bias"))
+//!     .unwrap();
+//! let report = case.audit(1, &Audit::new())?;
+//! assert!(judge(&case.bug.unwrap().expect, &report).right_diagnosis, "{report}");
+//! # Ok::<(), plumbline::Error>(())
+//! ```
+//!
 //! Generic layers implement [`GenericForward`](crate::GenericForward) for
 //! `Real = f32` and `Real = f64`, so the audit uses complex-step
 //! references. The three `f32`-only layers implement
@@ -75,6 +98,7 @@ mod norm;
 mod pool;
 pub mod programs;
 mod residual;
+mod rules;
 mod softmax;
 
 pub use attention::{Attention, AttentionBug};
@@ -89,6 +113,10 @@ pub use lstm::{LstmBug, LstmCell};
 pub use norm::{BatchNorm, BatchNormBug, LayerNorm, LayerNormBug, RmsNorm, RmsNormBug};
 pub use pool::{AvgPool2d, AvgPoolBug, MaxPool2d, MaxPoolBug};
 pub use residual::{Residual, ResidualBug};
+pub use rules::{
+    rule_cases, zero_bias, DenseRuleBug, Entry, GeluRuleBug, ResidualRuleBug, RuleCase,
+    SoftmaxRuleBug,
+};
 pub use softmax::{SoftmaxBug, SoftmaxCrossEntropy};
 
 /// Declares a layer's planted-bug enum: one variant per mistake, its
@@ -200,6 +228,10 @@ pub enum Kind {
     SharedKink,
     /// [`Diagnosis::BackwardAccumulates`].
     Accumulates,
+    /// [`Diagnosis::RuleAtFault`] naming this rule (the adjoint row).
+    RuleAtFault(crate::report::Culprit),
+    /// [`Diagnosis::NotSymmetric`] (the symmetry row).
+    NotSymmetric,
 }
 
 impl Kind {
@@ -233,6 +265,8 @@ impl Kind {
             (Kind::WrongFormula, Diagnosis::Partial { .. } | Diagnosis::WrongValues { .. }) => true,
             (Kind::SharedKink, Diagnosis::SharedKink { .. }) => true,
             (Kind::Accumulates, Diagnosis::BackwardAccumulates { .. }) => true,
+            (Kind::RuleAtFault(want), Diagnosis::RuleAtFault { culprit }) => *culprit == want,
+            (Kind::NotSymmetric, Diagnosis::NotSymmetric) => true,
             _ => false,
         }
     }
@@ -242,8 +276,9 @@ impl Kind {
     /// tensor's values), `transpose` (the right values in the wrong places:
     /// transposed, flipped, blocks permuted), `missing` (no gradient, or
     /// one never written), `partial` (only where an index condition holds),
-    /// `shape`, `formula` (a wrong formula, nothing simpler fits), `kink`
-    /// and `state` (a backward that accumulates).
+    /// `shape`, `formula` (a wrong formula, nothing simpler fits), `kink`,
+    /// `state` (a backward that accumulates), `rule` (the adjoint identity
+    /// names the wrong rule) and `symmetry` (the integrability test).
     ///
     /// ```
     /// use plumbline::gallery::Kind;
@@ -264,6 +299,8 @@ impl Kind {
             Kind::WrongFormula => "formula",
             Kind::SharedKink => "kink",
             Kind::Accumulates => "state",
+            Kind::RuleAtFault(_) => "rule",
+            Kind::NotSymmetric => "symmetry",
         }
     }
 }

@@ -41,6 +41,9 @@ planted_bugs! {
 pub struct Residual<R> {
     /// The planted bug, or `None` for the correct layer.
     pub bug: Option<ResidualBug>,
+    /// A bug planted in the layer's other rules (see
+    /// [`ResidualRuleBug`](crate::gallery::ResidualRuleBug)), or `None`.
+    pub rule_bug: Option<super::ResidualRuleBug>,
     _r: PhantomData<R>,
 }
 
@@ -49,6 +52,7 @@ impl<R: Real> Residual<R> {
     pub fn new(bug: Option<ResidualBug>) -> Self {
         Residual {
             bug,
+            rule_bug: None,
             _r: PhantomData,
         }
     }
@@ -75,14 +79,26 @@ impl<R: Real> Layer for Residual<R> {
     }
 
     fn backward(&self, a: &Args<R>, up: &[Tensor<R>]) -> Gradients<R> {
+        self.backward_with(a, up)
+    }
+}
+
+impl<R: Real> Residual<R> {
+    /// The backward for any scalar, with the planted bug and the planted
+    /// rule bug [`ResidualRuleBug::UpstreamShiftedByBias`](crate::gallery::ResidualRuleBug).
+    pub(crate) fn backward_with<T: Scalar>(&self, a: &Args<T>, up: &[Tensor<T>]) -> Gradients<T> {
         let (x, w, b) = (a.input(0), a.param(0), a.param(1));
         let (n, d) = (x.shape()[0], x.shape()[1]);
         let (xd, wd, g) = (x.data(), w.data(), up[0].data());
         let pre = affine(xd, wd, Some(b.data()), n, d, d);
-        let da: Vec<R> = pre
+        let shifted = self.rule_bug == Some(super::ResidualRuleBug::UpstreamShiftedByBias);
+        let da: Vec<T> = pre
             .iter()
             .zip(g)
-            .map(|(&ai, &gi)| {
+            .enumerate()
+            .map(|(f, (&ai, &gi))| {
+                // The planted rule bug: the bias added to the branch's upstream.
+                let gi = if shifted { gi + b.data()[f % d] } else { gi };
                 let at = if self.bug == Some(ResidualBug::DerivativeAtOutput) {
                     gelu(ai)
                 } else {
@@ -92,13 +108,13 @@ impl<R: Real> Layer for Residual<R> {
             })
             .collect();
         let skip = match self.bug {
-            Some(ResidualBug::ResidualDropped) => R::zero(),
-            Some(ResidualBug::ResidualTwice) => R::from_f64(2.0),
-            _ => R::one(),
+            Some(ResidualBug::ResidualDropped) => T::zero(),
+            Some(ResidualBug::ResidualTwice) => super::c::<T>(2.0),
+            _ => T::one(),
         };
-        let mut dx: Vec<R> = g.iter().map(|&gi| skip * gi).collect();
-        let mut dw = vec![R::zero(); d * d];
-        let mut db = vec![R::zero(); d];
+        let mut dx: Vec<T> = g.iter().map(|&gi| skip * gi).collect();
+        let mut dw = vec![T::zero(); d * d];
+        let mut db = vec![T::zero(); d];
         for r in 0..n {
             for o in 0..d {
                 let dao = da[r * d + o];

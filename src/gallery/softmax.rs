@@ -43,6 +43,9 @@ planted_bugs! {
 pub struct SoftmaxCrossEntropy<R> {
     /// The planted bug, or `None` for the correct layer.
     pub bug: Option<SoftmaxBug>,
+    /// A bug planted in the layer's forward-mode rule (see
+    /// [`SoftmaxRuleBug`](crate::gallery::SoftmaxRuleBug)), or `None`.
+    pub rule_bug: Option<super::SoftmaxRuleBug>,
     _r: PhantomData<R>,
 }
 
@@ -51,6 +54,7 @@ impl<R: Real> SoftmaxCrossEntropy<R> {
     pub fn new(bug: Option<SoftmaxBug>) -> Self {
         SoftmaxCrossEntropy {
             bug,
+            rule_bug: None,
             _r: PhantomData,
         }
     }
@@ -65,12 +69,12 @@ impl<R: Real> SoftmaxCrossEntropy<R> {
 }
 
 /// The class index stored in a label (clamped into range).
-fn label<T: Scalar>(v: T, classes: usize) -> usize {
+pub(crate) fn label<T: Scalar>(v: T, classes: usize) -> usize {
     v.to_usize().unwrap_or(0).min(classes.saturating_sub(1))
 }
 
 /// Row-wise softmax, stabilised by the row maximum.
-fn softmax<T: Scalar>(z: &[T], k: usize) -> Vec<T> {
+pub(crate) fn softmax<T: Scalar>(z: &[T], k: usize) -> Vec<T> {
     let mut s = Vec::with_capacity(z.len());
     for row in z.chunks(k) {
         let m = row.iter().copied().fold(row[0], T::max);

@@ -10,7 +10,7 @@
 use std::fmt::{self, Write as _};
 
 use crate::format::{err, num, shape_string, shorten_middle};
-use crate::report::{Report, Row};
+use crate::report::{Check, Report, Row};
 
 pub(crate) mod files;
 #[cfg(feature = "pictures")]
@@ -87,8 +87,12 @@ fn cells(rank: usize, r: &Row) -> [String; COLS] {
     };
     [
         (rank + 1).to_string(),
-        r.name.clone(),
-        r.role.to_string(),
+        row_name(r),
+        if r.check.is_whole_layer() {
+            "-".to_string()
+        } else {
+            r.role.to_string()
+        },
         shape_string(&r.shape),
         checked_cell(r),
         r.failing.to_string(),
@@ -104,6 +108,36 @@ fn cells(rank: usize, r: &Row) -> [String; COLS] {
             .map(|d| d.to_string())
             .unwrap_or_default(),
     ]
+}
+
+/// The tensor cell: the name, after the check for rows of other rules
+/// (`tangent y`, `hessian-vector w`); whole-layer checks by their name
+/// alone (`adjoint`, `symmetry`).
+fn row_name(r: &Row) -> String {
+    match r.check {
+        Check::Gradient => r.name.clone(),
+        c if c.is_whole_layer() => r.name.clone(),
+        c => format!("{c} {}", r.name),
+    }
+}
+
+/// What the report's rows check, for its title: `gradient` for a plain
+/// audit, `rule` when the rows check other hand-written rules.
+fn audit_word(report: &Report) -> &'static str {
+    if report.rows.iter().all(|r| r.check == Check::Gradient) {
+        "gradient"
+    } else {
+        "rule"
+    }
+}
+
+/// What a report's rows are counted as: `tensors`, or `checks` for rules.
+fn unit(report: &Report) -> &'static str {
+    if audit_word(report) == "rule" {
+        "checks"
+    } else {
+        "tensors"
+    }
 }
 
 /// The aligned table: a title line, one row per tensor (worst first), and
@@ -125,16 +159,21 @@ pub fn table(report: &Report, style: &Style) -> String {
     let mut out = String::new();
     let _ = writeln!(
         out,
-        "gradient audit of {} ({} layer, {} reference in {}, seed {}): {}",
+        "{} audit of {} ({} layer, {} reference in {}, seed {}): {}",
+        audit_word(report),
         report.layer,
         report.precision(),
         schemes(report),
         report.reference_precision(),
         report.seed,
         if failing == 0 {
-            format!("all {} tensors agree", report.rows.len())
+            format!("all {} {} agree", report.rows.len(), unit(report))
         } else {
-            format!("{failing} of {} tensors DISAGREE", report.rows.len())
+            format!(
+                "{failing} of {} {} DISAGREE",
+                report.rows.len(),
+                unit(report)
+            )
         }
     );
     for (i, row) in rows.iter().enumerate() {
@@ -165,13 +204,17 @@ pub fn table(report: &Report, style: &Style) -> String {
         out.push_str(line.trim_end());
         out.push('\n');
     }
-    let _ = writeln!(
+    let _ = write!(
         out,
         "bound per element: {}; {} forward and {} backward evaluations",
         report.bound_rule(),
         report.forward_evals,
         report.backward_evals
     );
+    if report.rule_evals > 0 {
+        let _ = write!(out, ", {} of other rules", report.rule_evals);
+    }
+    out.push('\n');
     for note in &report.notes {
         let _ = writeln!(out, "note: {note}");
     }
@@ -287,19 +330,34 @@ pub fn failure_message(report: &Report) -> String {
 /// What failed and the whole table: the common head of every failure
 /// message.
 pub(crate) fn failure_head(report: &Report) -> String {
-    let failing: Vec<&str> = report.failures().map(|r| r.name.as_str()).collect();
+    let failing: Vec<String> = report.failures().map(row_name).collect();
     let mut out = String::new();
-    let _ = writeln!(
-        out,
-        "the backward of `{}` disagrees with its forward in {}: {}",
-        report.layer,
-        if failing.len() == 1 {
-            "tensor"
-        } else {
-            "tensors"
-        },
-        failing.join(", ")
-    );
+    if audit_word(report) == "rule" {
+        let _ = writeln!(
+            out,
+            "the hand-written rules of `{}` fail {} {}: {}",
+            report.layer,
+            failing.len(),
+            if failing.len() == 1 {
+                "check"
+            } else {
+                "checks"
+            },
+            failing.join(", ")
+        );
+    } else {
+        let _ = writeln!(
+            out,
+            "the backward of `{}` disagrees with its forward in {}: {}",
+            report.layer,
+            if failing.len() == 1 {
+                "tensor"
+            } else {
+                "tensors"
+            },
+            failing.join(", ")
+        );
+    }
     out.push('\n');
     out.push_str(&table(report, &Style::plain()));
     out.push('\n');
@@ -322,9 +380,13 @@ pub(crate) fn markdown_linking(report: &Report, pictures: &[(String, String)]) -
         if failing == 0 { "✅" } else { "❌" },
         report.layer,
         if failing == 0 {
-            format!("all {} tensors agree", report.rows.len())
+            format!("all {} {} agree", report.rows.len(), unit(report))
         } else {
-            format!("{failing} of {} tensors disagree", report.rows.len())
+            format!(
+                "{failing} of {} {} disagree",
+                report.rows.len(),
+                unit(report)
+            )
         }
     );
     let _ = writeln!(

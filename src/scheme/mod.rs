@@ -20,11 +20,11 @@
 use std::fmt;
 use std::str::FromStr;
 
-mod central;
+pub(crate) mod central;
 mod complex;
 pub(crate) mod engine;
 mod kink;
-mod ridders;
+pub(crate) mod ridders;
 mod sweep;
 
 pub(crate) use complex::step_for as complex_step_for;
@@ -438,21 +438,27 @@ impl<F: FnMut(f64) -> f64> Line for ScalarLine<F> {
     fn pair(&mut self, h: f64) -> Pair {
         let p = self.at(h);
         let m = self.at(-h);
-        let width = p.step - m.step;
-        let derivative = (p.delta - m.delta) / width;
-        Pair {
-            derivative,
-            terms: derivative.abs(),
-            touched: p.touched.max(m.touched),
-            rounds_like: 0.0,
-            still: if p.delta == 0.0 && m.delta == 0.0 {
-                self.at_x.abs()
-            } else {
-                0.0
-            },
-            width,
-            finite: p.finite && m.finite,
-        }
+        pair_of(p, m, self.at_x)
+    }
+}
+
+/// The central difference of a scalar function from its samples at +h
+/// (`p`) and −h (`m`), with value `at_x` at the point.
+pub(crate) fn pair_of(p: Sample, m: Sample, at_x: f64) -> Pair {
+    let width = p.step - m.step;
+    let derivative = (p.delta - m.delta) / width;
+    Pair {
+        derivative,
+        terms: derivative.abs(),
+        touched: p.touched.max(m.touched),
+        rounds_like: p.rounds_like.max(m.rounds_like),
+        still: if p.delta == 0.0 && m.delta == 0.0 {
+            at_x.abs()
+        } else {
+            0.0
+        },
+        width,
+        finite: p.finite && m.finite,
     }
 }
 
