@@ -347,8 +347,11 @@ fn layer_norm_gradient_matches_published_values() {
 /// step now sees both sides of it), a difference of squares whose real
 /// differences step over stairs that the forward's running error bound
 /// measures (it once made the cross-check of the complex step give up on a
-/// correct reference), and a smooth element beside a kink whose kink probe
-/// bent with φ (it must hold the reference's own value to count).
+/// correct reference), a smooth element beside a kink whose kink probe
+/// bent with φ (it must hold the reference's own value to count), and ties
+/// of a max behind `f32` differences of squares, whose shares the backward
+/// computes with the forward's amplified rounding (the joint kink test
+/// allows it).
 #[test]
 fn programs_that_once_raised_false_alarms_pass() {
     use plumbline::gallery::programs::Program;
@@ -357,7 +360,7 @@ fn programs_that_once_raised_false_alarms_pass() {
         let r = Audit::new().seed(seed).run(&p, &args).unwrap();
         assert!(r.passed(), "f64 seed {seed}: {}\n{r}", p.describe());
     }
-    for seed in [1968, 7698, 13048] {
+    for seed in [1968, 3678, 4601, 7698, 13048, 20485] {
         let (p, args) = Program::<f32>::random(seed);
         let r = Audit::new().seed(seed).run(&p, &args).unwrap();
         assert!(r.passed(), "f32 seed {seed}: {}\n{r}", p.describe());
