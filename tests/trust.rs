@@ -1116,3 +1116,57 @@ fn a_tie_that_only_rounding_made_is_a_kink_not_a_false_alarm() {
         assert!(!r.passed(), "case {k}: {r}");
     }
 }
+
+// ------------------- 11. a parameter whose effect rounds away entirely
+
+/// Frost reading with a calibration drift (plain `f64`): y = x + c·p with
+/// c = 10⁻³⁰, so that moving p by any step real differences take changes no
+/// output by an ulp, while the backward's exact c·Σ upstream is not 0. A φ
+/// that never moves bounds the derivative only by the outputs' own ulps
+/// over the widest step; `stray` adds a gradient that would show.
+struct FrostDrift {
+    stray: f64,
+}
+
+const DRIFT: f64 = 1e-30;
+
+impl Layer for FrostDrift {
+    type Real = f64;
+    fn signature(&self) -> Signature {
+        Signature::new()
+            .input("x", "3")
+            .param("p", "1")
+            .output("y", "3")
+    }
+    fn backward(&self, _: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+        let dp = DRIFT * up[0].data().iter().sum::<f64>() + self.stray;
+        Gradients::from(vec![up[0].clone(), vector::<f64>(&[dp])])
+    }
+}
+
+impl Forward for FrostDrift {
+    fn forward(&self, a: &Args<f64>) -> Vec<Tensor<f64>> {
+        let p = a.param(0)[[0]];
+        vec![a.input(0).map(|x| x + DRIFT * p)]
+    }
+}
+
+#[test]
+fn a_parameter_whose_effect_rounds_away_is_not_a_false_alarm() {
+    for k in 0..50 {
+        let x: Vec<f64> = (0..3).map(|i| 0.5 + 0.1 * (k + i) as f64).collect();
+        let args = Args::new(vec![vector::<f64>(&x)], vec![vector::<f64>(&[0.3])]);
+        let r = Audit::new()
+            .seed(k as u64)
+            .run(&FrostDrift { stray: 0.0 }, &args)
+            .unwrap();
+        assert!(r.passed(), "case {k}: {r}");
+        // A gradient of 1e-6 on p is far above what the outputs can hide
+        // (their ulps over the widest step, about 1e-15) and still fails.
+        let r = Audit::new()
+            .seed(k as u64)
+            .run(&FrostDrift { stray: 1e-6 }, &args)
+            .unwrap();
+        assert!(!r.passed(), "case {k}: {r}");
+    }
+}

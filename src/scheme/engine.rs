@@ -175,27 +175,15 @@ impl<'a, U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> ArgLine<'a, U, F> {
     /// along this line: where φ(x+h) = φ(x−h) exactly while φ moved
     /// elsewhere, its stairs are at most as high as the smallest move seen,
     /// and any |φ′| up to (smallest move)/2h fits the flat difference; the
-    /// widest flat difference gives the tightest such limit. Where φ never
-    /// moved at all, the stairs are those of the outputs themselves (an
-    /// ulp each). 0 when no difference was flat.
+    /// widest flat difference gives the tightest such limit. 0 when no
+    /// difference was flat, or nothing moved (outputs that never moved are
+    /// the quantization allowance's, `scheme::quantization`).
     fn staircase_floor(&self) -> f64 {
-        if self.widest_flat <= 0.0 {
-            return 0.0;
-        }
-        let stair = if self.smallest_move.is_finite() {
-            self.smallest_move
+        if self.widest_flat > 0.0 && self.smallest_move.is_finite() {
+            self.smallest_move / self.widest_flat
         } else {
-            // φ never moved: every output kept its value, so each moved
-            // by less than its own ulp, and the derivative is below what
-            // the outputs can show over the widest flat width. A stray
-            // gradient of any size that matters still stands out.
-            self.w
-                .iter()
-                .zip(&self.work.base)
-                .map(|(w, y)| (w * y).abs() * U::EPS)
-                .sum::<f64>()
-        };
-        stair / self.widest_flat
+            0.0
+        }
     }
 
     /// Evaluates at x + t·v and leaves yᵢ(x + t·v) − yᵢ(x) in `work.diff`.
