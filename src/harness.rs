@@ -1,5 +1,6 @@
 //! Test-harness glue: [`Report::assert_passed`], the
-//! [`assert_backward!`](crate::assert_backward) macro and the proptest
+//! [`assert_backward!`](crate::assert_backward) macro, [`assert_tangents`]
+//! and [`assert_second_order`] for the other rules, and the proptest
 //! entry point [`check_layer`]. The macro and `check_layer` read the
 //! `PLUMBLINE_*` environment (see [`env`](crate::env)), run the audit,
 //! record the report (print it, write files), and turn the verdict into a
@@ -10,7 +11,7 @@ use std::fmt::Write as _;
 use crate::audit::Audit;
 use crate::env::{Environment, PrintFormat, SCHEME_VAR};
 use crate::error::Error;
-use crate::layer::{Args, Forward, Layer};
+use crate::layer::{Args, Forward, GenericBackward, Layer, TangentRule};
 use crate::render::{failure_head, failure_message, files, markdown, stdout_style, table};
 use crate::report::{ElementStatus, Passed, Report, Verdict};
 
@@ -190,21 +191,139 @@ pub fn __assert_backward<L: Forward + ?Sized>(
     configure: impl Fn(Audit) -> Audit,
     entry: __Entry<L>,
 ) -> Passed {
+    assert_under_env("assert_backward!", layer, args, configure, entry)
+}
+
+/// Checks a layer's tangent rule as [`assert_backward!`](crate::assert_backward)
+/// checks its backward: [`Audit::run_tangents`] (each output's tangent
+/// against the forward, and the adjoint identity against the backward)
+/// with the `PLUMBLINE_*` environment ([`env`](crate::env)) applied around
+/// the settings `configure` makes, the report printed or written as the
+/// environment asks, and a panic with the whole table unless it passed.
+///
+/// ```
+/// use plumbline::prelude::*;
+/// use plumbline::assert_tangents;
+///
+/// /// Frost index per station: y = 2x², with its forward-mode rule.
+/// struct Chill;
+/// impl Layer for Chill {
+///     type Real = f64;
+///     fn signature(&self) -> Signature {
+///         Signature::new().input("x", "n").output("y", "n")
+///     }
+///     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+///         Gradients::from(vec![Tensor::from_fn(up[0].shape().to_vec(), |i| 4.0 * a.input(0)[i] * up[0][i])])
+///     }
+/// }
+/// impl GenericForward for Chill {
+///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+///         vec![a.input(0).map(|x| (x + x) * x)]
+///     }
+/// }
+/// impl TangentRule for Chill {
+///     fn jvp(&self, a: &Args<f64>, d: &Args<f64>) -> Vec<Tensor<f64>> {
+///         vec![Tensor::from_fn(a.input(0).shape().to_vec(), |i| 4.0 * a.input(0)[i] * d.input(0)[i])]
+///     }
+/// }
+///
+/// let args = Args::new(vec![Tensor::new(vec![3], vec![0.5, -1.2, 2.0])?], vec![]);
+/// let passed = assert_tangents(&Chill, &args, |audit| audit.seed(7));
+/// assert_eq!(passed.row("adjoint").unwrap().failing, 0);
+/// # Ok::<(), plumbline::Error>(())
+/// ```
+#[track_caller]
+pub fn assert_tangents<L: TangentRule + Forward + ?Sized>(
+    layer: &L,
+    args: &Args<L::Real>,
+    configure: impl Fn(Audit) -> Audit,
+) -> Passed {
+    assert_under_env(
+        "assert_tangents",
+        layer,
+        args,
+        configure,
+        |audit, layer, args| audit.run_tangents(layer, args),
+    )
+}
+
+/// Checks a layer's second order as [`assert_tangents`] checks its tangent
+/// rule: [`Audit::run_second_order`] (the integrability test, and the
+/// hand-written Hessian-vector rule where the layer has one) under the
+/// `PLUMBLINE_*` environment, panicking with the whole table unless it
+/// passed.
+///
+/// ```
+/// use plumbline::prelude::*;
+/// use plumbline::assert_second_order;
+///
+/// /// Frost index per station: y = 2x², its backward written once.
+/// struct Chill;
+/// impl Layer for Chill {
+///     type Real = f64;
+///     fn signature(&self) -> Signature {
+///         Signature::new().input("x", "n").output("y", "n")
+///     }
+///     fn backward(&self, a: &Args<f64>, up: &[Tensor<f64>]) -> Gradients<f64> {
+///         self.backward_generic(a, up)
+///     }
+/// }
+/// impl GenericForward for Chill {
+///     fn forward_generic<T: Scalar>(&self, a: &Args<T>) -> Vec<Tensor<T>> {
+///         vec![a.input(0).map(|x| (x + x) * x)]
+///     }
+/// }
+/// impl GenericBackward for Chill {
+///     fn backward_generic<T: Scalar>(&self, a: &Args<T>, up: &[Tensor<T>]) -> Gradients<T> {
+///         let four = T::from(4.0).unwrap();
+///         Gradients::from(vec![Tensor::from_fn(up[0].shape().to_vec(), |i| four * a.input(0)[i] * up[0][i])])
+///     }
+/// }
+///
+/// let args = Args::new(vec![Tensor::new(vec![3], vec![0.5, -1.2, 2.0])?], vec![]);
+/// assert_second_order(&Chill, &args, |audit| audit);
+/// # Ok::<(), plumbline::Error>(())
+/// ```
+#[track_caller]
+pub fn assert_second_order<L: GenericBackward + Forward + ?Sized>(
+    layer: &L,
+    args: &Args<L::Real>,
+    configure: impl Fn(Audit) -> Audit,
+) -> Passed {
+    assert_under_env(
+        "assert_second_order",
+        layer,
+        args,
+        configure,
+        |audit, layer, args| audit.run_second_order(layer, args),
+    )
+}
+
+/// Reads the environment, runs `entry`, records the report and panics
+/// (naming `what`) unless it passed.
+#[track_caller]
+fn assert_under_env<L: Forward + ?Sized>(
+    what: &str,
+    layer: &L,
+    args: &Args<L::Real>,
+    configure: impl Fn(Audit) -> Audit,
+    entry: __Entry<L>,
+) -> Passed {
     let env = match Environment::from_env() {
         Ok(env) => env,
-        Err(e) => panic!("assert_backward!: {e}"),
+        Err(e) => panic!("{what}: {e}"),
     };
     match audit_with_env(layer, args, &env, &configure, entry) {
         Ok(report) => {
             if let Err(e) = record(&env, &report, true) {
-                panic!("assert_backward!: {e}");
+                panic!("{what}: {e}");
             }
             if !report.passed() {
                 panic!("{}", failure_text(&report, &env, &configure(Audit::new())));
             }
             Passed(report)
         }
-        Err(e) => panic!("assert_backward!: {e}"),
+        Err(e) => panic!("{what}: {e}"),
     }
 }
 

@@ -34,7 +34,10 @@
 //!   element, the bound that applied, a [`Verdict`] and a [`Diagnosis`].
 //!   `Display` renders the aligned table; [`Report::assert_passed`] panics
 //!   with it. In tests, [`assert_backward!`] and [`check_layer`] (for
-//!   proptest) add the `PLUMBLINE_*` environment ([`env`]) for CI.
+//!   proptest) add the `PLUMBLINE_*` environment ([`env`]) for CI;
+//!   [`assert_tangents`] and [`assert_second_order`] do the same for a
+//!   layer's forward-mode rule ([`TangentRule`]) and second order
+//!   ([`GenericBackward`]).
 //!
 //! # Example
 //!
@@ -148,6 +151,7 @@ pub use fn_layer::FnLayer;
 pub use harness::check_layer;
 #[doc(hidden)]
 pub use harness::{__Audited, __Entry, __OnOneThread, __OnThreads, __Pick, __assert_backward};
+pub use harness::{assert_second_order, assert_tangents};
 pub use layer::{Args, Forward, GenericBackward, GenericForward, Gradients, Layer, TangentRule};
 pub use report::{Report, Row, Verdict};
 pub use scalar::{Real, Scalar};

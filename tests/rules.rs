@@ -355,3 +355,27 @@ fn misbehaving_rules_are_errors_or_failing_rows_never_panics() {
         "{err}"
     );
 }
+
+/// The environment-aware assertions of the other rules: a correct layer
+/// passes and hands back its report; a planted rule bug panics with the
+/// whole table and the replay line, as `assert_backward!` does.
+#[test]
+fn the_assertions_of_other_rules_pass_correct_rules_and_panic_with_the_table() {
+    let args = Dense::args(5);
+    let passed = plumbline::assert_tangents(&Dense::<f64>::new(None), &args, |a| a.seed(5));
+    assert!(passed.row("adjoint").is_some(), "{}", *passed);
+    let passed = plumbline::assert_second_order(&Dense::<f64>::new(None), &args, |a| a);
+    assert!(passed.row("symmetry").is_some(), "{}", *passed);
+
+    let layer = Dense::<f64>::new(None).with_rule_bug(DenseRuleBug::UpstreamShiftedByBias);
+    let caught = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
+        plumbline::assert_second_order(&layer, &args, |a| a.seed(5));
+    }));
+    let message = caught.expect_err("a non-symmetric backward must panic");
+    let text = message
+        .downcast_ref::<String>()
+        .cloned()
+        .unwrap_or_default();
+    assert!(text.contains("symmetry"), "{text}");
+    assert!(text.contains("replay: seed 5"), "{text}");
+}
