@@ -154,14 +154,17 @@ pub(crate) fn compare(
 ) -> Result<Compared, Error> {
     let mut elements = Vec::with_capacity(estimates.len());
     // Per element, how much the forward's own rounding at the point
-    // exceeds a few ulps (for the joint test's allowance).
+    // exceeds a few ulps (for the joint test's allowance). A tie's share
+    // may be 0 in the element's own estimate (no output moved along it):
+    // the whole layer's amplification is the least it gets.
     let mut amplifications = Vec::with_capacity(estimates.len());
+    let widest = prober.widest_amplification();
     let mut corners_left = CORNER_PROBES;
     let (mut looks_left, mut confirmed) = (usize::MAX, 0);
     for (&j, est) in indices.iter().zip(estimates) {
         let analytic = grad.map_or(f64::NAN, |g| g.data()[j]);
         let mut e = judge(j, analytic, &est, tol, layer_eps);
-        let mut amplification = est.amplification;
+        let mut amplification = est.amplification.max(widest);
         if !inputs[j].is_finite() {
             e.status = if analytic.is_finite() {
                 ElementStatus::NonFiniteInput
@@ -234,12 +237,6 @@ pub(crate) fn compare(
                 }
             }
         }
-    }
-    // A tie's share may be 0 in the element's own estimate (no output
-    // moved along it): the whole layer's amplification stands in.
-    let widest = prober.widest_amplification();
-    for a in &mut amplifications {
-        *a = a.max(widest);
     }
     let joint_kink = joint_test(&elements, &amplifications, prober, tol, layer_eps)?;
     Ok(Compared {
