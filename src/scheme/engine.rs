@@ -1043,16 +1043,14 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             return Ok(None);
         };
         Ok(
-            complex::sides(&plus, &minus, &self.w_per_output, h).and_then(
-                |(left, right, noise)| {
-                    (right - left > noise).then_some(KinkProbe {
-                        left,
-                        right,
-                        noise,
-                        at_point: true,
-                    })
-                },
-            ),
+            complex::sides(&plus, &minus, &self.w_per_output, h).and_then(|(low, high, noise)| {
+                (high - low > noise).then_some(KinkProbe {
+                    left: low,
+                    right: high,
+                    noise,
+                    at_point: true,
+                })
+            }),
         )
     }
 
