@@ -11,6 +11,7 @@
 use std::panic::{catch_unwind, AssertUnwindSafe};
 
 use super::complex::{self, Directional};
+use super::stairs::{self, AcrossStairs};
 use super::{
     central, joint_probe, kink_test, look, ridders, scatter, sweep, Estimate, KinkProbe, Line,
     Look, Pair, Sample, Scheme, LOOK_OFFSETS,
@@ -100,6 +101,10 @@ pub(crate) struct Working<U> {
     /// point over ε (`1 + tanh u` at u = −16 is 5e-14 but rounds like 1).
     /// Empty when not measured.
     rounds_like: Vec<f64>,
+    /// Per argument tensor, the root mean square of its finite elements:
+    /// the scale its elements live on (weights of 10⁻³ make a forward that
+    /// normalises them change on that scale, not on 1).
+    typical: Vec<f64>,
 }
 
 impl<U: Real> Working<U> {
@@ -109,12 +114,30 @@ impl<U: Real> Working<U> {
             .flat_map(|t| t.data().iter().map(|v| v.as_f64()))
             .collect();
         let n = base.len();
+        let typical = args
+            .all()
+            .iter()
+            .map(|t| {
+                let (sum, count) = t
+                    .data()
+                    .iter()
+                    .map(|v| v.as_f64())
+                    .filter(|v| v.is_finite())
+                    .fold((0.0, 0usize), |(s, c), v| (s + v * v, c + 1));
+                if count == 0 {
+                    0.0
+                } else {
+                    (sum / count as f64).sqrt()
+                }
+            })
+            .collect();
         Working {
             args,
             base,
             diff: vec![0.0; n],
             kept: vec![0.0; n],
             rounds_like: Vec::new(),
+            typical,
         }
     }
 }
@@ -282,6 +305,11 @@ impl<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>> Line for ArgLine<'_, U, F> {
             .iter()
             .fold(0.0_f64, |m, &(_, x0, _)| m.max(x0.as_f64().abs()))
     }
+    fn fine_scale(&self) -> Option<f64> {
+        let typical = self.work.typical.get(self.slot).copied().unwrap_or(0.0);
+        let fine = self.x().max(typical);
+        (fine > 0.0).then_some(fine)
+    }
     fn at(&mut self, t: f64) -> Sample {
         self.eval(t)
     }
@@ -335,6 +363,9 @@ enum Ask {
     Check,
     Pair(f64),
     Look,
+    /// The slope across the stairs of a forward flat over the reference's
+    /// steps.
+    Stairs,
     Kink(f64),
     /// The kink test in the layer's own precision, where a forward that does
     /// not move at all over the test's steps counts as a flat kink.
@@ -353,6 +384,7 @@ enum Answer {
     Check(Option<ridders::Check>),
     Pair(Pair),
     Look(Look),
+    Stairs(Option<AcrossStairs>),
     Probe(Option<KinkProbe>),
     Sweep(Vec<(f64, f64)>),
 }
@@ -387,6 +419,7 @@ fn ask<U: Real, F: Fn(&Args<U>) -> Vec<Tensor<U>>>(
         Ask::Check => Answer::Check(ridders::small_step_check(&mut line)),
         Ask::Pair(h) => Answer::Pair(line.pair(h)),
         Ask::Look => Answer::Look(look(&mut line)),
+        Ask::Stairs => Answer::Stairs(stairs::across_stairs(&mut line)),
         Ask::Kink(factor) => {
             let h = kink_step(factor, &line);
             Answer::Probe(kink_test(&mut line, h))
@@ -1281,11 +1314,25 @@ impl<'a, L: Forward + ?Sized> Engine<'a, L> {
             }
             e.error += 2.0 * self.complex_jitter(slot, j, x, first.value)?;
             e.evals += LOOK_OFFSETS.len();
-        } else if e.step > 0.0 {
-            // The smallest step of the estimate is about a sixteenth of its
-            // widest; the forward's scatter over it is that reference's own
-            // rounding, which its error bar may have understated.
-            e.error += 4.0 * look.noise / (e.step / 16.0);
+        } else {
+            if e.step > 0.0 {
+                // The smallest step of the estimate is about a sixteenth of
+                // its widest; the forward's scatter over it is that
+                // reference's own rounding, which its error bar may have
+                // understated.
+                e.error += 4.0 * look.noise / (e.step / 16.0);
+            }
+            // Nothing moved over any of the reference's steps: a term the
+            // forward rounds away still has a slope, measured across the
+            // stairs further out.
+            if first.forward_scale == 0.0 && first.value == 0.0 {
+                if let Answer::Stairs(Some(s)) = self.ask(slot, &[(j, 1.0)], Ask::Stairs)? {
+                    e.value = s.value;
+                    e.error = e.error.max(s.error);
+                    e.conclusive = false;
+                    e.evals += s.evals;
+                }
+            }
         }
         Ok(Some(e))
     }

@@ -14,6 +14,7 @@
 //! | `ridders.rs` | Ridders' extrapolation, cross-checked at a small step |
 //! | `kink.rs` | the one-sided test for non-differentiable points |
 //! | `complex.rs` | the complex step over a generic forward |
+//! | `stairs.rs` | slopes across the stairs of a forward flat at its own precision |
 //! | `sweep.rs` | central differences over a sweep of steps (the error-against-step picture's data) |
 //! | `engine.rs` | lines over a layer's arguments, and which scheme runs |
 
@@ -25,6 +26,7 @@ mod complex;
 pub(crate) mod engine;
 mod kink;
 pub(crate) mod ridders;
+mod stairs;
 mod sweep;
 
 pub(crate) use complex::step_for as complex_step_for;
@@ -227,6 +229,12 @@ pub(crate) trait Line {
     /// The typical scale of a step: max(|x|, 1).
     fn scale(&self) -> f64 {
         self.x().abs().max(1.0)
+    }
+    /// The scale the coordinate's tensor lives on, max(|x|, the tensor's
+    /// root mean square), where known: weights of 10⁻³ live on 10⁻³, and a
+    /// reference undecided at [`scale`](Line::scale) can try it.
+    fn fine_scale(&self) -> Option<f64> {
+        None
     }
     /// φ at x + t, measured against φ(x).
     fn at(&mut self, t: f64) -> Sample;
