@@ -41,8 +41,6 @@ pub(crate) struct AcrossStairs {
     /// Its error bar: one stair at each end over the width, plus its
     /// distance from the difference at half the width (truncation).
     pub error: f64,
-    /// The distance at which the forward first moved.
-    pub onset: f64,
     /// Forward evaluations spent.
     pub evals: usize,
 }
@@ -129,7 +127,6 @@ pub(crate) fn across_stairs(line: &mut impl Line) -> Option<AcrossStairs> {
     Some(AcrossStairs {
         value: best.0,
         error: best.1,
-        onset,
         evals,
     })
 }
