@@ -206,6 +206,16 @@ pub enum Diagnosis {
         #[serde(with = "crate::format::float_text")]
         right: f64,
     },
+    /// A passing row with elements that agree only within a wide bound:
+    /// the reference's own error there is above 1% of the derivative (a
+    /// plain forward that rounds a term away, weights far below 1 in
+    /// `f32`), so a wrong value of about that size would pass as well.
+    Undecided {
+        /// Elements judged against a wide bound.
+        count: usize,
+        /// Elements checked.
+        of: usize,
+    },
     /// Some elements sit at a non-differentiable point; listed apart.
     Kinks {
         /// Elements at a kink.
@@ -254,9 +264,13 @@ impl fmt::Display for Culprit {
 }
 
 impl Diagnosis {
-    /// `true` for the informational diagnosis of a passing row (kinks).
+    /// `true` for the informational diagnosis of a passing row (kinks,
+    /// undecided elements).
     pub fn is_informational(&self) -> bool {
-        matches!(self, Diagnosis::Kinks { outside: 0, .. })
+        matches!(
+            self,
+            Diagnosis::Kinks { outside: 0, .. } | Diagnosis::Undecided { .. }
+        )
     }
 
     /// `true` when the diagnosis names a mechanism (sign, factor,
@@ -281,6 +295,7 @@ impl Diagnosis {
             Diagnosis::Partial { pattern, .. } => !pattern.starts_with(SCATTERED),
             Diagnosis::WrongValues { .. }
             | Diagnosis::Kinks { .. }
+            | Diagnosis::Undecided { .. }
             | Diagnosis::RuleAtFault {
                 culprit: Culprit::Either,
             } => false,
@@ -426,6 +441,10 @@ impl fmt::Display for Diagnosis {
             ),
             Diagnosis::RuleAtFault { culprit } => write!(f, "{culprit}"),
             Diagnosis::NotSymmetric => f.write_str("backward's Jacobian not symmetric"),
+            Diagnosis::Undecided { count, of } => write!(
+                f,
+                "{count} of {of} undecided (reference error above 1% there)"
+            ),
             Diagnosis::Kinks { count, outside } => {
                 if *outside == 0 {
                     write!(f, "{count} at a kink (one-sided values fit)")
@@ -534,10 +553,21 @@ pub(crate) fn diagnose(
         }
     }
     if wrong.is_empty() {
-        return (kinks > 0).then_some(Diagnosis::Kinks {
-            count: kinks,
-            outside,
-        });
+        let wide = el
+            .iter()
+            .filter(|e| e.status == ElementStatus::Agrees && !e.decided)
+            .count();
+        return if kinks > 0 {
+            Some(Diagnosis::Kinks {
+                count: kinks,
+                outside,
+            })
+        } else {
+            (wide > 0).then_some(Diagnosis::Undecided {
+                count: wide,
+                of: el.len(),
+            })
+        };
     }
     // Elements at a kink say nothing about the smooth part's bug.
     let smooth: Vec<ElementCheck> = el.iter().filter(|e| !e.status.is_kink()).cloned().collect();
@@ -948,6 +978,12 @@ mod tests {
             outside: 1
         }
         .is_informational());
+        let undecided = Diagnosis::Undecided { count: 3, of: 10 };
+        assert!(undecided.is_informational() && !undecided.is_specific());
+        assert_eq!(
+            undecided.to_string(),
+            "3 of 10 undecided (reference error above 1% there)"
+        );
         assert!(!Diagnosis::SignFlipped.is_informational());
         assert!(!Diagnosis::Missing.is_informational());
     }
