@@ -144,14 +144,53 @@ mod tests {
         (1.0 + u * u).ln()
     }
 
+    /// A line that counts the forward evaluations asked of it.
+    struct Counted<L> {
+        inner: L,
+        calls: usize,
+    }
+
+    impl<L: Line> Line for Counted<L> {
+        fn eps(&self) -> f64 {
+            self.inner.eps()
+        }
+        fn x(&self) -> f64 {
+            self.inner.x()
+        }
+        fn at(&mut self, t: f64) -> crate::scheme::Sample {
+            self.calls += 1;
+            self.inner.at(t)
+        }
+        fn pair(&mut self, h: f64) -> crate::scheme::Pair {
+            self.calls += 2;
+            self.inner.pair(h)
+        }
+    }
+
+    type CountedFn = Counted<ScalarLine<fn(f64) -> f64>>;
+
+    fn counted(f: fn(f64) -> f64, x: f64) -> CountedFn {
+        Counted {
+            inner: ScalarLine::new(f, x),
+            calls: 0,
+        }
+    }
+
     #[test]
     fn a_rounded_away_square_is_measured_across_its_stairs() {
-        let mut line = ScalarLine::new(absorbed, 3.0);
-        assert_eq!(line.at(0.3).delta, 0.0, "flat over the reference's steps");
-        let s = across_stairs(&mut line).expect("stairs further out");
-        let exact = 2.0 * 3e-9 * 1e-9;
-        assert!((s.value - exact).abs() <= s.error, "{s:?}");
-        assert!(s.error < 0.5 * exact, "resolves a factor of two: {s:?}");
+        // At x = 3 both sides first move together; at x = −10 the side
+        // away from 0 moves first (|x − t| reaches 14.9 at t = 4.9, x + t
+        // only at t = 24.9).
+        for x in [3.0, -10.0] {
+            let mut line = counted(absorbed, x);
+            assert_eq!(line.at(0.3 * x.abs().max(1.0)).delta, 0.0, "flat at {x}");
+            line.calls = 0;
+            let s = across_stairs(&mut line).expect("stairs further out");
+            let exact = 2.0 * x * 1e-18 / (1.0 + (1e-9 * x).powi(2));
+            assert!((s.value - exact).abs() <= s.error, "at {x}: {s:?}");
+            assert!(s.error < 0.5 * exact.abs(), "a factor of two at {x}: {s:?}");
+            assert_eq!(s.evals, line.calls, "at {x}: {s:?}");
+        }
     }
 
     #[test]
@@ -160,12 +199,17 @@ mod tests {
         // to 1, so the forward is 0 up to x ≈ 23, then rises to slope 1
         // beyond x = 60. The derivative at 3 is e^(−57) ≈ 1.7·10⁻²⁵
         // (calculus); the straight stretch far out must not be taken for it.
-        let f = |x: f64| (1.0 + (x - 60.0).exp()).ln();
-        let mut line = ScalarLine::new(f, 3.0);
+        // The forward first moves between 19.2 and 38.4 away, by one ulp
+        // of 1 (2.2·10⁻¹⁶), and the difference at 38.4 already jumps far
+        // beyond that stair: what remains is the flat difference, 0 within
+        // 2 stairs over its width 38.4 (1.2·10⁻¹⁷).
+        let mut line = counted(|x: f64| (1.0 + (x - 60.0).exp()).ln(), 3.0);
         let s = across_stairs(&mut line).expect("a stair at the onset");
         let exact = (-57.0_f64).exp();
         assert!((s.value - exact).abs() <= s.error, "{s:?}");
-        assert!(s.error < 1e-9, "{s:?}");
+        assert_eq!(s.value, 0.0, "{s:?}");
+        assert!(s.error < 1.5e-17, "{s:?}");
+        assert_eq!(s.evals, line.calls, "{s:?}");
     }
 
     #[test]
