@@ -30,6 +30,12 @@ pub struct ElementCheck {
 }
 
 impl ElementCheck {
+    /// `true` for an element that agrees only within a wide bound (the
+    /// reference's own error above 1% of the derivative there).
+    pub(crate) fn is_wide(&self) -> bool {
+        !self.decided && self.status == ElementStatus::Agrees
+    }
+
     /// |analytic − numeric| over the bound (∞ for a non-finite value or a
     /// zero bound with a difference).
     pub fn excess(&self) -> f64 {

@@ -553,10 +553,7 @@ pub(crate) fn diagnose(
         }
     }
     if wrong.is_empty() {
-        let wide = el
-            .iter()
-            .filter(|e| e.status == ElementStatus::Agrees && !e.decided)
-            .count();
+        let wide = el.iter().filter(|e| e.is_wide()).count();
         return if kinks > 0 {
             Some(Diagnosis::Kinks {
                 count: kinks,

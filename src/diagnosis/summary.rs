@@ -125,10 +125,7 @@ pub(crate) fn summarize(elements: &[ElementCheck], facts: &RowFacts<'_>) -> Summ
         .iter()
         .filter(|e| e.status == ElementStatus::NonFiniteInput)
         .count();
-    let wide = elements
-        .iter()
-        .filter(|e| !e.decided && e.status == ElementStatus::Agrees)
-        .count();
+    let wide = elements.iter().filter(|e| e.is_wide()).count();
     let (mut max_abs, mut max_rel) = (0.0_f64, 0.0_f64);
     // Kinks and unmoved elements count in the row's figures only when
     // they fail it.

@@ -169,9 +169,14 @@ pub(crate) fn small_step_check(line: &mut impl Line) -> Option<Check> {
     check_at_scale(line, scale)
 }
 
+/// The first check's step, 2ε^(1/3)·`scale`.
+fn check_step(line: &impl Line, scale: f64) -> f64 {
+    2.0 * line.eps().cbrt() * scale
+}
+
 /// The check at s = 2ε^(1/3)·`scale`.
 fn check_at_scale(line: &mut impl Line, scale: f64) -> Option<Check> {
-    let step = 2.0 * line.eps().cbrt() * scale;
+    let step = check_step(line, scale);
     check_at(line, step)
 }
 
@@ -192,8 +197,8 @@ pub(crate) fn estimate(line: &mut impl Line) -> Estimate {
     let mut unit = estimate_at(line, scale, 0.1 * scale);
     // The unit run's cross-checks are no check on a scale finer than
     // their own steps.
-    let check_step = 2.0 * line.eps().cbrt() * scale;
-    let reached = |fine: &f64| !unit.conclusive && *fine < check_step;
+    let widest_check = check_step(line, scale);
+    let reached = |fine: &f64| !unit.conclusive && *fine < widest_check;
     if let Some(fine) = line.fine_scale().filter(reached) {
         let finer = estimate_at(line, fine, 0.1 * fine);
         unit.evals += finer.evals;
